@@ -1,0 +1,1 @@
+"""Accounts: users and roles, passwords, browser sessions with CSRF tokens, API tokens and login throttling."""

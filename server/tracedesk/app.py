@@ -1,0 +1,87 @@
+"""The application factory: ``create_app(settings) -> FastAPI``. Nothing is built at import time."""
+
+from __future__ import annotations
+
+from fastapi import FastAPI
+from fastapi.responses import FileResponse, Response
+from fastapi.staticfiles import StaticFiles
+from sqlalchemy import text
+
+from tracedesk import __version__
+from tracedesk.accounts import api as accounts_api
+from tracedesk.accounts import pages as accounts_pages
+from tracedesk.accounts.passwords import build_hasher
+from tracedesk.archive import api as archive_api
+from tracedesk.archive import pages as archive_pages
+from tracedesk.audit import api as audit_api
+from tracedesk.audit import pages as audit_pages
+from tracedesk.config import Settings
+from tracedesk.db import build_engine, session_factory, writer_engine
+from tracedesk.migrate import upgrade_database
+from tracedesk.storage import build_store
+from tracedesk.web.error_handlers import install_error_handlers
+from tracedesk.web.state import AppState
+from tracedesk.web.templating import build_templates, web_root
+
+API_DESCRIPTION = (
+    "Tracedesk turns archived paper chart records into trustworthy numbers. Authenticate with a browser session "
+    "(POST /api/v1/session, then send X-CSRF-Token on changes) or an API token ('Authorization: Bearer ...'). "
+    "Editable records carry a version and an ETag; changes need If-Match (428 without, 412 when stale)."
+)
+
+
+def build_state(settings: Settings, *, migrate: bool = True) -> AppState:
+    """Engine, session factories, hasher, file store and templates for one app (or one CLI run)."""
+    settings.data_dir.mkdir(parents=True, exist_ok=True)
+    engine = build_engine(settings.resolved_database_url)
+    if migrate and engine.dialect.name == "sqlite":
+        upgrade_database(engine)  # the embedded default migrates itself; PostgreSQL uses `tracedesk migrate`
+    return AppState(
+        settings=settings,
+        engine=engine,
+        reader=session_factory(engine),
+        writer=session_factory(writer_engine(engine)),
+        hasher=build_hasher(memory_kib=settings.argon2_memory_kib, time_cost=settings.argon2_time_cost),
+        store=build_store(settings),
+        templates=build_templates(),
+    )
+
+
+def create_app(settings: Settings | None = None, *, state: AppState | None = None) -> FastAPI:
+    settings = settings or Settings()
+    app = FastAPI(
+        title="Tracedesk",
+        version=__version__,
+        description=API_DESCRIPTION,
+        openapi_url="/api/v1/openapi.json",
+        docs_url="/docs",
+        redoc_url=None,
+    )
+    app.state.tracedesk = state or build_state(settings)
+    install_error_handlers(app)
+    app.mount("/static", StaticFiles(directory=str(web_root() / "static")), name="static")
+    for router in (
+        accounts_api.router,
+        archive_api.router,
+        audit_api.router,
+        accounts_pages.router,
+        archive_pages.router,
+        audit_pages.router,
+    ):
+        app.include_router(router)
+    _add_service_routes(app)
+    return app
+
+
+def _add_service_routes(app: FastAPI) -> None:
+    @app.get("/api/v1/health", tags=["service"])
+    def health() -> dict[str, str]:
+        """Liveness and readiness: the process answers and the database accepts a query."""
+        state: AppState = app.state.tracedesk
+        with state.engine.connect() as connection:
+            connection.execute(text("SELECT 1"))
+        return {"status": "ok", "version": __version__, "database": state.engine.dialect.name}
+
+    @app.get("/favicon.ico", include_in_schema=False)
+    def favicon() -> Response:
+        return FileResponse(web_root() / "static" / "favicon.svg", media_type="image/svg+xml")

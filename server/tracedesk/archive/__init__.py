@@ -1,0 +1,1 @@
+"""The archive: collections of scanned sheets, their uploads, derived images and metadata."""

@@ -1,0 +1,201 @@
+"""The ``tracedesk`` command: run the service, manage accounts, import scans, check the audit chain."""
+
+from __future__ import annotations
+
+import secrets
+import sys
+from pathlib import Path
+
+import click
+from sqlalchemy import func, select
+
+from tracedesk.accounts import service as accounts
+from tracedesk.audit.service import SYSTEM, verify_chain
+from tracedesk.config import Settings
+from tracedesk.db import build_engine, transaction
+from tracedesk.migrate import upgrade_database
+from tracedesk.models import User
+from tracedesk.models.user import ROLES
+from tracedesk.web.state import AppState
+
+
+def _state(*, migrate: bool = True) -> AppState:
+    from tracedesk.app import build_state
+
+    return build_state(Settings(), migrate=migrate)
+
+
+def _fail(message: str, code: int = 1) -> None:
+    click.secho(message, fg="red", err=True)
+    sys.exit(code)
+
+
+@click.group()
+@click.version_option(package_name="tracedesk")
+def main() -> None:
+    """Tracedesk: turn archived paper chart records into trustworthy numbers."""
+
+
+@main.command()
+def migrate() -> None:
+    """Create or upgrade the database schema (needed for PostgreSQL; the embedded SQLite does it itself)."""
+    settings = Settings()
+    engine = build_engine(settings.resolved_database_url)
+    upgrade_database(engine)
+    click.echo(f"database at {engine.url.render_as_string(hide_password=True)} is up to date")
+
+
+def _ensure_first_admin(state: AppState) -> None:
+    """On the very first run, create an admin with a fresh random password and print it once."""
+    with transaction(state.writer) as session:
+        if session.scalar(select(func.count()).select_from(User)):
+            return
+        password = secrets.token_urlsafe(12)
+        accounts.create_user(
+            session,
+            state.hasher,
+            actor=SYSTEM,
+            username="admin",
+            password=password,
+            role="admin",
+            display_name="Administrator",
+        )
+    click.secho("First run: an administrator account was created.", fg="green")
+    click.secho(f"  user name: admin\n  password:  {password}   (shown once; change it after signing in)", bold=True)
+
+
+@main.command()
+@click.option("--host", default="127.0.0.1", show_default=True)
+@click.option("--port", default=8000, show_default=True, type=int)
+@click.option("--workers", default=1, show_default=True, type=int, help="uvicorn worker processes")
+def serve(host: str, port: int, workers: int) -> None:
+    """Run the web service (on the embedded SQLite database and local files unless configured otherwise)."""
+    import uvicorn
+
+    state = _state()
+    _ensure_first_admin(state)
+    state.engine.dispose()
+    click.secho(f"Tracedesk is running at http://{host}:{port}/  (Ctrl+C stops it)", fg="cyan")
+    uvicorn.run("tracedesk.asgi:app", host=host, port=port, workers=workers, log_level="info")
+
+
+@main.group()
+def user() -> None:
+    """Manage accounts."""
+
+
+@user.command("add")
+@click.argument("username")
+@click.option("--role", type=click.Choice(ROLES), required=True)
+@click.option("--name", "display_name", default="", help="printed name used in signatures")
+@click.option("--password-stdin", is_flag=True, help="read the password from standard input")
+def user_add(username: str, role: str, display_name: str, password_stdin: bool) -> None:
+    """Create an account; without --password-stdin a random password is generated and printed once."""
+    password = sys.stdin.readline().rstrip("\n") if password_stdin else secrets.token_urlsafe(12)
+    state = _state()
+    from tracedesk.errors import AppError
+
+    try:
+        with transaction(state.writer) as session:
+            accounts.create_user(
+                session,
+                state.hasher,
+                actor=SYSTEM,
+                username=username,
+                password=password,
+                role=role,
+                display_name=display_name,
+            )
+    except AppError as error:
+        _fail(f"refused: {error.message}", 2)
+    click.echo(f"created {username.lower()} ({role})")
+    if not password_stdin:
+        click.echo(f"password: {password}   (shown once)")
+
+
+@user.command("list")
+def user_list() -> None:
+    """List accounts with their roles."""
+    state = _state()
+    with transaction(state.reader) as session:
+        for account in accounts.list_users(session):
+            flag = "" if account.is_active else "  (disabled)"
+            click.echo(f"{account.username:<24} {account.role:<11} {account.display_name}{flag}")
+
+
+@user.command("disable")
+@click.argument("username")
+def user_disable(username: str) -> None:
+    """Disable an account and end its sessions and API tokens."""
+    state = _state()
+    from tracedesk.errors import AppError
+
+    try:
+        with transaction(state.writer) as session:
+            account = accounts.get_user_by_name(session, username)
+            accounts.update_user(session, account, actor=SYSTEM, is_active=False)
+    except AppError as error:
+        _fail(f"refused: {error.message}", 2)
+    click.echo(f"disabled {username}")
+
+
+@main.group()
+def token() -> None:
+    """Manage API tokens."""
+
+
+@token.command("create")
+@click.argument("username")
+@click.option("--label", default="command line", show_default=True)
+def token_create(username: str, label: str) -> None:
+    """Create an API token for USERNAME and print it once."""
+    state = _state()
+    from tracedesk.errors import AppError
+
+    try:
+        with transaction(state.writer) as session:
+            account = accounts.get_user_by_name(session, username)
+            raw, _ = accounts.create_api_token(session, account, name=label, actor=SYSTEM)
+    except AppError as error:
+        _fail(f"refused: {error.message}", 2)
+    click.echo(raw)
+
+
+@main.group()
+def audit() -> None:
+    """Audit trail commands."""
+
+
+@audit.command("verify")
+def audit_verify() -> None:
+    """Recompute the hash chain; exit 0 when it holds, else 1 and the first broken sequence number."""
+    state = _state()
+    with transaction(state.reader) as session:
+        report = verify_chain(session)
+    if report.ok:
+        click.echo(f"audit chain intact: {report.events_checked} events verified")
+        return
+    _fail(f"audit chain BROKEN at sequence number {report.first_broken_seq}: {report.problem}", 1)
+
+
+@main.command("import")
+@click.argument("folder", type=click.Path(exists=True, file_okay=False, path_type=Path))
+@click.option("--collection", "collection_name", required=True, help="collection name (created if missing)")
+@click.option("--as-user", "username", default=None, help="account recorded as the uploader (default: system)")
+def import_folder(folder: Path, collection_name: str, username: str | None) -> None:
+    """Bulk upload every scan in FOLDER (PNG, JPEG, TIFF, PDF) into a collection, with a summary."""
+    from tracedesk.archive.bulk_import import import_folder as run_import
+
+    state = _state()
+    summary = run_import(state, folder, collection_name=collection_name, username=username)
+    click.echo(
+        f"accepted {summary.accepted} sheet(s), duplicates {len(summary.duplicates)}, refused {len(summary.refused)}"
+    )
+    for name, reason in summary.duplicates + summary.refused:
+        click.echo(f"  {name}: {reason}")
+    if summary.refused:
+        sys.exit(3)
+
+
+if __name__ == "__main__":  # pragma: no cover
+    main()

@@ -1,0 +1,1 @@
+"""Shared HTTP plumbing: request-scoped database sessions, the current principal, CSRF, ETags, templates."""

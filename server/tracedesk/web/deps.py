@@ -1,0 +1,143 @@
+"""Request dependencies: one database transaction per request, the current principal, CSRF, permissions."""
+
+from __future__ import annotations
+
+import hmac
+from collections.abc import Callable, Coroutine, Iterator
+from dataclasses import dataclass
+from typing import Annotated, Any
+
+from fastapi import Depends, Request
+from sqlalchemy.orm import Session
+from starlette.concurrency import run_in_threadpool
+
+from tracedesk.accounts import service as accounts
+from tracedesk.accounts.permissions import Permission, role_allows
+from tracedesk.audit.service import Actor
+from tracedesk.db import transaction
+from tracedesk.errors import Forbidden, NotAuthenticated
+from tracedesk.models import User, WebSession
+from tracedesk.web.state import app_state
+
+SAFE_METHODS = frozenset({"GET", "HEAD", "OPTIONS"})
+SESSION_COOKIE = "tracedesk_session"
+CSRF_HEADER = "x-csrf-token"
+CSRF_FIELD = "csrf_token"
+
+
+def get_db(request: Request) -> Iterator[Session]:
+    """The request's only unit of work: committed when the handler returns, rolled back on any error.
+
+    Requests that may write take the SQLite write lock at BEGIN (see ``db.writer_engine``).
+    """
+    state = app_state(request)
+    factory = state.reader if request.method in SAFE_METHODS else state.writer
+    with transaction(factory) as session:
+        yield session
+
+
+SessionDep = Annotated[Session, Depends(get_db, scope="function")]
+
+
+@dataclass(frozen=True)
+class Principal:
+    """The authenticated user of this request and how they proved it."""
+
+    user: User
+    web_session: WebSession | None
+
+    @property
+    def actor(self) -> Actor:
+        return accounts.actor_of(self.user)
+
+    def can(self, permission: Permission) -> bool:
+        return role_allows(self.user.role, permission)
+
+    def require(self, permission: Permission) -> None:
+        if not self.can(permission):
+            raise Forbidden(f"your role ({self.user.role}) may not do this ({permission.value})")
+
+
+def client_address(request: Request) -> str:
+    return request.client.host if request.client else "unknown"
+
+
+def _bearer_token(request: Request) -> str | None:
+    header = request.headers.get("authorization", "")
+    scheme, _, value = header.partition(" ")
+    return value.strip() if scheme.lower() == "bearer" and value.strip() else None
+
+
+async def _submitted_csrf_token(request: Request) -> str:
+    token = request.headers.get(CSRF_HEADER)
+    if token:
+        return token
+    content_type = request.headers.get("content-type", "")
+    if content_type.startswith("application/x-www-form-urlencoded"):
+        form = await request.form()  # Starlette caches the parsed form for the handler
+        value = form.get(CSRF_FIELD)
+        return value if isinstance(value, str) else ""
+    return ""
+
+
+async def _check_csrf(request: Request, web_session: WebSession) -> None:
+    if request.method in SAFE_METHODS:
+        return
+    submitted = await _submitted_csrf_token(request)
+    if not submitted or not hmac.compare_digest(submitted, web_session.csrf_token):
+        raise Forbidden("the form or request is missing its CSRF token, or it belongs to another session; reload")
+
+
+def _lookup(request: Request, cookie: str | None, raw_token: str | None) -> tuple[User, WebSession | None] | None:
+    """Resolve credentials in a short read transaction of its own, so the request's write lock is not held yet."""
+    state = app_state(request)
+    with transaction(state.reader) as session:
+        if raw_token is not None:
+            found_token = accounts.find_api_token(session, raw_token)
+            if found_token is None:
+                raise NotAuthenticated("the API token is unknown, revoked or belongs to a disabled account")
+            return found_token[1], None
+        if not cookie:
+            return None
+        live = accounts.find_web_session(session, state.settings, cookie)
+        if live is None:
+            return None
+        return live[1], live[0]
+
+
+def _touch_if_stale(request: Request, web_session: WebSession) -> None:
+    if accounts.session_needs_touch(web_session):
+        with transaction(app_state(request).writer) as session:
+            accounts.touch_web_session(session, web_session.id)
+
+
+async def optional_principal(request: Request) -> Principal | None:
+    """The caller, from an API token or a session cookie (with its CSRF check on unsafe methods)."""
+    found = await run_in_threadpool(_lookup, request, request.cookies.get(SESSION_COOKIE), _bearer_token(request))
+    if found is None:
+        return None
+    user, web_session = found
+    if web_session is not None:
+        await _check_csrf(request, web_session)
+        await run_in_threadpool(_touch_if_stale, request, web_session)
+    return Principal(user=user, web_session=web_session)
+
+
+async def current_principal(principal: Annotated[Principal | None, Depends(optional_principal)]) -> Principal:
+    if principal is None:
+        raise NotAuthenticated("log in first (or send an API token as 'Authorization: Bearer ...')")
+    return principal
+
+
+CurrentPrincipal = Annotated[Principal, Depends(current_principal)]
+OptionalPrincipal = Annotated[Principal | None, Depends(optional_principal)]
+
+
+def requires(permission: Permission) -> Callable[[Principal], Coroutine[Any, Any, Principal]]:
+    """A dependency that passes the principal on only when their role allows ``permission``."""
+
+    async def dependency(principal: CurrentPrincipal) -> Principal:
+        principal.require(permission)
+        return principal
+
+    return dependency
