@@ -133,3 +133,9 @@ def signed_in(app: FastAPI, people: People) -> Iterator[dict[str, TestClient]]:
     yield clients
     for test_client in clients.values():
         test_client.close()
+
+
+def pytest_configure(config: pytest.Config) -> None:
+    """CI sets TRACEDESK_REQUIRE_SERVICES: then a missing PostgreSQL URL is an error, never a silent skip."""
+    if os.environ.get("TRACEDESK_REQUIRE_SERVICES") and not os.environ.get(POSTGRES_ENV):
+        raise pytest.UsageError(f"TRACEDESK_REQUIRE_SERVICES is set but {POSTGRES_ENV} is not")

@@ -10,7 +10,7 @@ from datetime import datetime, timedelta
 
 from argon2 import PasswordHasher
 from sqlalchemy import func, select, update
-from sqlalchemy.orm import Session
+from sqlalchemy.orm import InstrumentedAttribute, Session
 
 from tracedesk.accounts.passwords import check_password_policy, verify_password
 from tracedesk.audit.service import Actor, created_fields, field_changes, record_event
@@ -143,7 +143,7 @@ class LoginOutcome:
     throttled: bool
 
 
-def _recent_failures(session: Session, column: object, value: str, since: datetime) -> int:
+def _recent_failures(session: Session, column: InstrumentedAttribute[str], value: str, since: datetime) -> int:
     query = (
         select(func.count())
         .select_from(LoginAttempt)

@@ -41,9 +41,14 @@ MAX_FILENAME = 255
 class IncomingFile(Protocol):
     """What an upload part offers (Starlette's UploadFile has these)."""
 
-    filename: str | None
-    content_type: str | None
-    file: IO[bytes]
+    @property
+    def filename(self) -> str | None: ...
+
+    @property
+    def content_type(self) -> str | None: ...
+
+    @property
+    def file(self) -> IO[bytes]: ...
 
 
 @dataclass(frozen=True)
