@@ -17,6 +17,7 @@ from tracedesk.audit import api as audit_api
 from tracedesk.audit import pages as audit_pages
 from tracedesk.config import Settings
 from tracedesk.db import build_engine, session_factory, writer_engine
+from tracedesk.digitizing import api as digitizing_api
 from tracedesk.migrate import upgrade_database
 from tracedesk.storage import build_store
 from tracedesk.web.error_handlers import install_error_handlers
@@ -64,6 +65,7 @@ def create_app(settings: Settings | None = None, *, state: AppState | None = Non
         accounts_api.router,
         archive_api.router,
         audit_api.router,
+        digitizing_api.router,
         accounts_pages.router,
         archive_pages.router,
         audit_pages.router,

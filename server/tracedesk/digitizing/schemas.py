@@ -5,74 +5,45 @@ from __future__ import annotations
 from datetime import datetime
 from typing import Annotated, Any, Literal
 
-from pydantic import BaseModel, ConfigDict, Field, model_validator
+from pydantic import BaseModel, ConfigDict, Field, JsonValue, model_validator
 
 Pixel = Annotated[list[float], Field(min_length=2, max_length=2)]
 Finite = Annotated[float, Field(allow_inf_nan=False)]
 
 
-class AxisSpec(BaseModel):
-    """One axis of a cartesian chart: its scale and, for time axes, an optional start or chart speed."""
-
-    model_config = ConfigDict(extra="forbid")
-    scale: Literal["linear", "log10", "sqrt", "time"] = "linear"
-    unit: str = Field(default="", max_length=60)
-    start: str | None = Field(default=None, max_length=40, description="ISO 8601 date-time with offset (time axes)")
-
-
-class ControlPoint(BaseModel):
-    model_config = ConfigDict(extra="forbid")
-    pixel: Annotated[list[Finite], Field(min_length=2, max_length=2)]
-    value: Annotated[list[Finite], Field(min_length=2, max_length=2)]
-
-
-class CartesianCalibrationIn(BaseModel):
-    model_config = ConfigDict(extra="forbid")
-    kind: Literal["cartesian"]
-    x_axis: AxisSpec = AxisSpec()
-    y_axis: AxisSpec = AxisSpec()
-    control_points: list[ControlPoint] = Field(min_length=2, max_length=500)
-    transform: Literal["auto", "similarity", "affine", "projective", "polynomial2"] = "auto"
+CALIBRATION_EXAMPLE: dict[str, JsonValue] = {
+    "kind": "cartesian",
+    "x_axis": {"scale": "time"},
+    "y_axis": {"scale": "linear"},
+    "control_points": [
+        {"pixel": [100.5, 900.5], "value": [0, 0]},
+        {"pixel": [1900.5, 900.5], "value": [24, 0]},
+        {"pixel": [1900.5, 100.5], "value": [24, 10]},
+        {"pixel": [100.5, 100.5], "value": [0, 10]},
+    ],
+    "transform": "auto",
+}
 
 
-class ValueAxisSpec(BaseModel):
-    model_config = ConfigDict(extra="forbid")
-    scale: Literal["linear", "sqrt", "log10"] = "linear"
-    unit: str = Field(default="", max_length=60)
-    min: Finite
-    max: Finite
-    radius_min_px: Finite = Field(ge=0)
-    radius_max_px: Finite = Field(gt=0)
+class CalibrationIn(BaseModel):
+    """A sheet's calibration. Kinds and their fields (pixels ``[u, v]`` from the top-left corner of the image):
 
+    - ``cartesian``: ``x_axis``/``y_axis`` ``{"scale": "linear"|"log10"|"sqrt"|"time", "start"?: ISO 8601}``,
+      ``control_points`` ``[{"pixel": [u, v], "value": [x, y]}, ...]`` (2 or more), ``transform``
+      ``"auto"|"similarity"|"affine"|"projective"|"polynomial2"``.
+    - ``circular``: ``centre``, ``value_axis`` ``{"scale", "min", "max", "radius_min_px", "radius_max_px"}``,
+      ``period_hours``, ``time_zero_pixel``, ``time_direction`` ``"clockwise"|"counterclockwise"``,
+      ``pen_arc``? ``{"pivot_pixel": [u, v], "length_px": L}``, ``start``? ISO 8601.
+    - ``curvilinear``: the cartesian fields plus ``pen_arc`` ``{"pivot_pixel", "length_px", "pivot_side"}``.
+    - ``strip_speed``: ``y_axis``, value ``control_points`` ``[{"pixel", "value": y}]``, ``time_zero_pixel``,
+      ``time_direction`` ``"right"|"left"|"down"|"up"``, ``chart_speed_mm_per_hour``, ``scan_dpi``.
 
-class PenArcSpec(BaseModel):
-    model_config = ConfigDict(extra="forbid")
-    pivot_pixel: Annotated[list[Finite], Field(min_length=2, max_length=2)]
-    length_px: Finite = Field(gt=0)
+    The science core validates every field; a bad one is refused with 422 naming its path.
+    """
 
-
-class CircularCalibrationIn(BaseModel):
-    model_config = ConfigDict(extra="forbid")
-    kind: Literal["circular"]
-    centre: Annotated[list[Finite], Field(min_length=2, max_length=2)]
-    value_axis: ValueAxisSpec
-    period_hours: Finite = Field(gt=0)
-    time_zero_pixel: Annotated[list[Finite], Field(min_length=2, max_length=2)]
-    time_direction: Literal["clockwise", "counterclockwise"] = "clockwise"
-    pen_arc: PenArcSpec | None = None
-    start: str | None = Field(default=None, max_length=40)
-
-
-class CurvilinearCalibrationIn(BaseModel):
-    """A strip or drum chart whose pen swings on an arm: cartesian control points plus the arm geometry."""
-
-    model_config = ConfigDict(extra="allow")
-    kind: Literal["curvilinear"]
-
-
-CalibrationIn = Annotated[
-    CartesianCalibrationIn | CircularCalibrationIn | CurvilinearCalibrationIn, Field(discriminator="kind")
-]
+    model_config = ConfigDict(extra="allow", json_schema_extra={"examples": [CALIBRATION_EXAMPLE]})
+    kind: Literal["cartesian", "circular", "curvilinear", "strip_speed"]
+    reason: str | None = Field(default=None, max_length=2000, description="why an existing calibration changes")
 
 
 class PointResidual(BaseModel):
@@ -96,6 +67,7 @@ class CalibrationRead(BaseModel):
     warnings: list[str]
     updated_at: datetime
     origin: str
+    report: dict[str, Any]
 
 
 class TraceCreate(BaseModel):

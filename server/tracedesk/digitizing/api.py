@@ -1,0 +1,242 @@
+"""JSON routes of the digitizing engine under /api/v1: calibration, traces, fits, resampled data, summaries."""
+
+from __future__ import annotations
+
+from typing import Annotated, Any, Literal
+
+from fastapi import APIRouter, Body, Depends, Query, Request, Response
+from fastapi.responses import JSONResponse, PlainTextResponse
+from starlette.concurrency import run_in_threadpool
+
+from tracedesk.accounts.permissions import Permission
+from tracedesk.archive.service import get_sheet
+from tracedesk.db import transaction
+from tracedesk.digitizing import calibrations, fits, series, traces
+from tracedesk.digitizing.schemas import (
+    AutoTraceRequest,
+    CalibrationIn,
+    CalibrationRead,
+    FitRead,
+    FitRequest,
+    TraceCreate,
+    TraceRead,
+    TraceUpdate,
+)
+from tracedesk.digitizing.service import mark_work_started, rederive_sheet
+from tracedesk.digitizing.sheet_image import load_sheet_image
+from tracedesk.errors import Unprocessable
+from tracedesk.models import Sheet, Trace
+from tracedesk.web.conditional import require_if_match, set_etag
+from tracedesk.web.deps import Principal, SessionDep, requires
+from tracedesk.web.state import app_state
+
+router = APIRouter(prefix="/api/v1", tags=["digitizing"])
+Reader = Annotated[Principal, Depends(requires(Permission.READ))]
+Digitizer = Annotated[Principal, Depends(requires(Permission.DIGITIZE))]
+PERIODS = {"hour": 1.0, "day": 24.0, "week": 168.0}
+
+
+def _sheet(db: SessionDep, sheet_id: int) -> Sheet:
+    return get_sheet(db, sheet_id).sheet
+
+
+def _trace_read(db: SessionDep, trace: Trace) -> TraceRead:
+    return traces.trace_read(db, trace, (calibrations.x_unit_of(calibrations.calibration_of(db, trace.sheet_id)), ""))
+
+
+@router.put("/sheets/{sheet_id}/calibration", response_model=CalibrationRead, responses={201: {}, 412: {}, 428: {}})
+def put_calibration(
+    sheet_id: int, body: CalibrationIn, principal: Digitizer, request: Request, db: SessionDep
+) -> Response:
+    """Calibrate a sheet. Replacing an existing calibration needs If-Match and re-derives every fit."""
+    sheet = _sheet(db, sheet_id)
+    existing = calibrations.calibration_of(db, sheet_id)
+    if existing is not None:
+        require_if_match(request, "calibration", sheet_id, existing.version)
+    spec = body.model_dump(exclude={"reason"}, exclude_none=True)
+    row, replaced = calibrations.put_calibration(db, sheet, spec, actor=principal.actor, reason=body.reason)
+    mark_work_started(db, sheet, actor=principal.actor)
+    if replaced:
+        rederive_sheet(db, sheet, actor=principal.actor, cause=f"calibration changed to version {row.version}")
+    body_out = calibrations.calibration_read(row).model_dump(mode="json")
+    response = JSONResponse(body_out, status_code=200 if replaced else 201)
+    set_etag(response, "calibration", sheet_id, row.version)
+    return response
+
+
+@router.get("/sheets/{sheet_id}/calibration", response_model=CalibrationRead)
+def get_calibration(sheet_id: int, _: Reader, db: SessionDep, response: Response) -> CalibrationRead:
+    _sheet(db, sheet_id)
+    row = calibrations.require_calibration(db, sheet_id)
+    set_etag(response, "calibration", sheet_id, row.version)
+    return calibrations.calibration_read(row)
+
+
+@router.post("/sheets/{sheet_id}/traces", response_model=TraceRead, status_code=201)
+def create_trace(
+    sheet_id: int, body: TraceCreate, principal: Digitizer, db: SessionDep, response: Response
+) -> TraceRead:
+    sheet = _sheet(db, sheet_id)
+    trace = traces.create_manual_trace(db, sheet, body, actor=principal.actor)
+    mark_work_started(db, sheet, actor=principal.actor)
+    set_etag(response, "trace", trace.id, trace.version)
+    return _trace_read(db, trace)
+
+
+def _auto_trace(request: Request, sheet_id: int, body: AutoTraceRequest, principal: Principal) -> TraceRead:
+    """Read what is needed, trace without holding any lock, then store the result in one short transaction."""
+    state = app_state(request)
+    with transaction(state.reader) as session:
+        sheet = _sheet(session, sheet_id)
+        region = traces.region_for(body.region, session, sheet)
+        derived_key = sheet.derived_key
+    image = load_sheet_image(state.store, derived_key)
+    result = traces.run_auto_trace(image, region, body)
+    with transaction(state.writer) as session:
+        sheet = _sheet(session, sheet_id)
+        trace = traces.store_auto_trace(session, sheet, body, result, actor=principal.actor)
+        mark_work_started(session, sheet, actor=principal.actor)
+        session.flush()
+        return _trace_read(session, trace)
+
+
+@router.post("/sheets/{sheet_id}/traces/auto", response_model=TraceRead, status_code=201)
+async def auto_trace(sheet_id: int, body: AutoTraceRequest, principal: Digitizer, request: Request) -> Response:
+    """Find a pen line of the given colour in a box, polygon or the calibrated area; stored as a new trace."""
+    read = await run_in_threadpool(_auto_trace, request, sheet_id, body, principal)
+    response = JSONResponse(read.model_dump(mode="json"), status_code=201)
+    set_etag(response, "trace", read.id, read.version)
+    return response
+
+
+@router.get("/sheets/{sheet_id}/traces", response_model=list[TraceRead])
+def list_traces(sheet_id: int, _: Reader, db: SessionDep) -> list[TraceRead]:
+    _sheet(db, sheet_id)
+    return [_trace_read(db, trace) for trace in traces.traces_of_sheet(db, sheet_id)]
+
+
+@router.get("/traces/{trace_id}", response_model=TraceRead)
+def get_trace(trace_id: int, _: Reader, db: SessionDep, response: Response) -> TraceRead:
+    trace = traces.get_trace(db, trace_id)
+    set_etag(response, "trace", trace.id, trace.version)
+    return _trace_read(db, trace)
+
+
+@router.patch("/traces/{trace_id}", response_model=TraceRead)
+def update_trace(
+    trace_id: int, body: TraceUpdate, principal: Digitizer, request: Request, db: SessionDep, response: Response
+) -> TraceRead:
+    trace = traces.get_trace(db, trace_id)
+    require_if_match(request, "trace", trace.id, trace.version)
+    before = trace.version
+    traces.update_trace(db, _sheet(db, trace.sheet_id), trace, body, actor=principal.actor)
+    if trace.version != before and body.vertices is not None:
+        fits.rederive_fits(db, trace, actor=principal.actor, cause=f"trace changed to version {trace.version}")
+    set_etag(response, "trace", trace.id, trace.version)
+    return _trace_read(db, trace)
+
+
+@router.delete("/traces/{trace_id}", status_code=204)
+def withdraw_trace(
+    trace_id: int,
+    principal: Digitizer,
+    request: Request,
+    db: SessionDep,
+    reason: Annotated[str, Query(min_length=1, max_length=2000)],
+) -> Response:
+    """Withdraw a trace (it stays in the archive and the audit trail, with the reason)."""
+    trace = traces.get_trace(db, trace_id)
+    require_if_match(request, "trace", trace.id, trace.version)
+    traces.withdraw_trace(db, trace, actor=principal.actor, reason=reason)
+    return Response(status_code=204)
+
+
+@router.post("/traces/{trace_id}/fits", response_model=FitRead, status_code=201)
+def create_fit(trace_id: int, body: FitRequest, principal: Digitizer, db: SessionDep, response: Response) -> FitRead:
+    """Fit a model: ``{"family": "polynomial", "degree": 3}``, ``{"family": "fourier", "degree": 2,
+    "period": 24}``, ``{"family": "exponential"}``, ``power``, ``logarithmic``, ``spline``, ``interpolation``."""
+    trace = traces.get_trace(db, trace_id)
+    options: dict[str, Any] = body.model_dump(exclude={"family"})
+    fit = fits.create_fit(db, trace, body.family, options, actor=principal.actor)
+    set_etag(response, "fit", fit.id, fit.version)
+    return fits.fit_read(fit)
+
+
+@router.post("/traces/{trace_id}/fits/suggest")
+def suggest_fit(
+    trace_id: int, _: Reader, db: SessionDep, period: Annotated[float | None, Body(embed=True, gt=0)] = None
+) -> dict[str, Any]:
+    """Fit the candidate models and rank them by AICc and cross-validation (the simpler preferred on ties)."""
+    return fits.suggest(db, traces.get_trace(db, trace_id), period=period)
+
+
+@router.get("/traces/{trace_id}/fits", response_model=list[FitRead])
+def list_fits(trace_id: int, _: Reader, db: SessionDep) -> list[FitRead]:
+    traces.get_trace(db, trace_id)
+    return [fits.fit_read(fit) for fit in fits.fits_of_trace(db, trace_id)]
+
+
+@router.get("/fits/{fit_id}", response_model=FitRead)
+def get_fit(fit_id: int, _: Reader, db: SessionDep, response: Response) -> FitRead:
+    fit = fits.get_fit(db, fit_id)
+    set_etag(response, "fit", fit.id, fit.version)
+    return fits.fit_read(fit)
+
+
+@router.get(
+    "/traces/{trace_id}/resampled.csv", response_class=PlainTextResponse, responses={200: {"content": {"text/csv": {}}}}
+)
+def resampled_csv(
+    trace_id: int,
+    _: Reader,
+    db: SessionDep,
+    step: Annotated[float | None, Query(gt=0)] = None,
+    count: Annotated[int | None, Query(ge=2, le=1_000_000)] = None,
+    start: float | None = None,
+    stop: float | None = None,
+    method: Literal["linear", "pchip", "fit"] = "linear",
+    fit_id: int | None = None,
+    max_gap: Annotated[float | None, Query(gt=0)] = None,
+) -> Response:
+    """The trace on a uniform grid (RFC 4180 CSV, units in the header); gaps and out-of-range rows are empty."""
+    if step is None and count is None:
+        raise Unprocessable("give step or count")
+    trace = traces.get_trace(db, trace_id)
+    resampled = series.resample(
+        db, trace, step=step, count=count, start=start, stop=stop, method=method, fit_id=fit_id, max_gap=max_gap
+    )
+    text = series.resampled_csv(db, trace, resampled)
+    filename = f"trace-{trace.id}-v{trace.version}-resampled.csv"
+    return Response(
+        text.encode("utf-8"),
+        media_type="text/csv; charset=utf-8",
+        headers={"Content-Disposition": f'attachment; filename="{filename}"'},
+    )
+
+
+@router.get("/traces/{trace_id}/summary")
+def period_summary(
+    trace_id: int,
+    _: Reader,
+    db: SessionDep,
+    period: Annotated[str, Query(description="hour, day, week or a number of hours")] = "day",
+    origin: float = 0.0,
+    threshold: float | None = None,
+    max_gap: Annotated[float | None, Query(gt=0)] = None,
+) -> dict[str, Any]:
+    """Per period: mean, minimum and maximum with their times, integral, time above/below a threshold, count."""
+    span = PERIODS.get(period)
+    if span is None:
+        try:
+            span = float(period)
+        except ValueError as error:
+            raise Unprocessable("period must be hour, day, week or a positive number of hours") from error
+    trace = traces.get_trace(db, trace_id)
+    rows = series.summaries(db, trace, period_hours=span, origin=origin, threshold=threshold, max_gap=max_gap)
+    return {
+        "trace_id": trace.id,
+        "trace_version": trace.version,
+        "period_hours": span,
+        "unit": trace.unit,
+        "periods": rows,
+    }
