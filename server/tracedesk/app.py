@@ -3,7 +3,7 @@
 from __future__ import annotations
 
 from fastapi import FastAPI
-from fastapi.responses import FileResponse, Response
+from fastapi.responses import FileResponse, JSONResponse, Response
 from fastapi.staticfiles import StaticFiles
 from sqlalchemy import text
 
@@ -18,9 +18,14 @@ from tracedesk.audit import pages as audit_pages
 from tracedesk.config import Settings
 from tracedesk.db import build_engine, session_factory, writer_engine
 from tracedesk.digitizing import api as digitizing_api
-from tracedesk.migrate import upgrade_database
+from tracedesk.digitizing import pages as digitizing_pages
+from tracedesk.digitizing import workbench_api
+from tracedesk.jobs import api as jobs_api
+from tracedesk.jobs.dispatch import build_dispatcher
+from tracedesk.migrate import readiness_problems, upgrade_database
 from tracedesk.storage import build_store
 from tracedesk.web.error_handlers import install_error_handlers
+from tracedesk.web.request_log import RequestLogMiddleware
 from tracedesk.web.state import AppState
 from tracedesk.web.templating import build_templates, web_root
 
@@ -37,7 +42,7 @@ def build_state(settings: Settings, *, migrate: bool = True) -> AppState:
     engine = build_engine(settings.resolved_database_url)
     if migrate and engine.dialect.name == "sqlite":
         upgrade_database(engine)  # the embedded default migrates itself; PostgreSQL uses `tracedesk migrate`
-    return AppState(
+    state = AppState(
         settings=settings,
         engine=engine,
         reader=session_factory(engine),
@@ -46,6 +51,8 @@ def build_state(settings: Settings, *, migrate: bool = True) -> AppState:
         store=build_store(settings),
         templates=build_templates(),
     )
+    state.dispatcher = build_dispatcher(state)
+    return state
 
 
 def create_app(settings: Settings | None = None, *, state: AppState | None = None) -> FastAPI:
@@ -60,15 +67,19 @@ def create_app(settings: Settings | None = None, *, state: AppState | None = Non
     )
     app.state.tracedesk = state or build_state(settings)
     install_error_handlers(app)
+    app.add_middleware(RequestLogMiddleware)
     app.mount("/static", StaticFiles(directory=str(web_root() / "static")), name="static")
     for router in (
         accounts_api.router,
         archive_api.router,
         audit_api.router,
         digitizing_api.router,
+        workbench_api.router,
+        jobs_api.router,
         accounts_pages.router,
         archive_pages.router,
         audit_pages.router,
+        digitizing_pages.router,
     ):
         app.include_router(router)
     _add_service_routes(app)
@@ -83,6 +94,14 @@ def _add_service_routes(app: FastAPI) -> None:
         with state.engine.connect() as connection:
             connection.execute(text("SELECT 1"))
         return {"status": "ok", "version": __version__, "database": state.engine.dialect.name}
+
+    @app.get("/api/v1/ready", tags=["service"], responses={503: {}})
+    def ready() -> Response:
+        """Readiness: the schema is at the newest migration and the file store accepts a write."""
+        state: AppState = app.state.tracedesk
+        problems = readiness_problems(state)
+        body = {"status": "ready" if not problems else "not ready", "problems": problems}
+        return JSONResponse(body, status_code=200 if not problems else 503)
 
     @app.get("/favicon.ico", include_in_schema=False)
     def favicon() -> Response:

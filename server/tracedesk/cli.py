@@ -79,6 +79,26 @@ def serve(host: str, port: int, workers: int) -> None:
     uvicorn.run("tracedesk.asgi:app", host=host, port=port, workers=workers, log_level="info")
 
 
+@main.command()
+@click.option("--burst", is_flag=True, help="stop when the queue is empty (for tests and cron)")
+def worker(burst: bool) -> None:
+    """Run a queue worker (RQ on Redis; set TRACEDESK_REDIS_URL). Start as many as the machines allow."""
+    from rq import Worker
+
+    from tracedesk.jobs.dispatch import RqDispatcher
+    from tracedesk.jobs.worker import requeue_stale, worker_state
+
+    settings = Settings()
+    if not settings.redis_url:
+        _fail("set TRACEDESK_REDIS_URL (e.g. redis://127.0.0.1:6379/0) to run a worker", 2)
+    state = worker_state()
+    requeued = requeue_stale(state)
+    if requeued:
+        click.echo(f"re-queued {len(requeued)} job(s) whose worker had stopped: {requeued}")
+    dispatcher = RqDispatcher(str(settings.redis_url), settings.rq_queue)
+    Worker([dispatcher.queue], connection=dispatcher.connection).work(burst=burst, with_scheduler=False)
+
+
 @main.group()
 def user() -> None:
     """Manage accounts."""

@@ -44,6 +44,12 @@ class Settings(BaseSettings):
     s3_prefix: str = ""
     s3_endpoint_url: str | None = None
 
+    # Background jobs: "inprocess" (a thread pool in each web process) or "rq" (Redis + `tracedesk worker`).
+    job_backend: Literal["inprocess", "rq"] = "inprocess"
+    job_threads: int = Field(default=2, ge=1, le=32)
+    redis_url: str | None = None
+    rq_queue: str = Field(default="tracedesk", pattern=r"^[A-Za-z0-9_.-]{1,64}$")
+
     argon2_memory_kib: int = Field(default=19 * 1024, ge=19 * 1024)
     argon2_time_cost: int = Field(default=2, ge=2)
 

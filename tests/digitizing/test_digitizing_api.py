@@ -173,3 +173,16 @@ def test_manual_trace_edit_rederives_fits_and_is_audited(signed_in: dict[str, Te
     assert tech.patch(f"/api/v1/traces/{trace_id}", json={"name": "r"}, headers={"If-Match": etag}).status_code == 412
     viewer = signed_in["viewer"]
     assert viewer.post(f"/api/v1/traces/{trace_id}/fits", json={"family": "polynomial", "degree": 1}).status_code == 403
+
+
+def test_spline_fit_is_stored_with_a_note_instead_of_an_equation(
+    signed_in: dict[str, TestClient], sheet_id: int
+) -> None:
+    tech = signed_in["technician"]
+    _calibrate(tech, sheet_id)
+    x = np.linspace(0.0, 48.0, 80)
+    vertices = MAPPING.data_to_pixel(x, truth(x)).tolist()
+    trace_id = tech.post(f"/api/v1/sheets/{sheet_id}/traces", json={"name": "s", "vertices": vertices}).json()["id"]
+    fit = tech.post(f"/api/v1/traces/{trace_id}/fits", json={"family": "spline"})
+    assert fit.status_code == 201, fit.text
+    assert fit.json()["equation"]["text"].startswith("no closed-form equation")

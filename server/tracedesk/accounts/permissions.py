@@ -14,11 +14,15 @@ class Permission(StrEnum):
     REVIEW = "review"
     MANAGE_USERS = "manage_users"
     VERIFY_AUDIT = "verify_audit"
+    MANAGE_TASKS = "manage_tasks"
+    EXPORT = "export"
 
 
 ROLE_PERMISSIONS: dict[str, frozenset[Permission]] = {
-    "viewer": frozenset({Permission.READ}),
-    "technician": frozenset({Permission.READ, Permission.UPLOAD, Permission.EDIT_ARCHIVE, Permission.DIGITIZE}),
+    "viewer": frozenset({Permission.READ, Permission.EXPORT}),
+    "technician": frozenset(
+        {Permission.READ, Permission.UPLOAD, Permission.EDIT_ARCHIVE, Permission.DIGITIZE, Permission.EXPORT}
+    ),
     "reviewer": frozenset(
         {
             Permission.READ,
@@ -27,6 +31,8 @@ ROLE_PERMISSIONS: dict[str, frozenset[Permission]] = {
             Permission.MANAGE_COLLECTIONS,
             Permission.DIGITIZE,
             Permission.REVIEW,
+            Permission.MANAGE_TASKS,
+            Permission.EXPORT,
         }
     ),
     "admin": frozenset(Permission),

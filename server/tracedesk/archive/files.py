@@ -38,6 +38,7 @@ def original_response(store: FileStore, item: SheetWithSource) -> Response:
         "Content-Disposition": f'attachment; filename="{_download_name(item.sheet.filename)}"',
         "Content-Length": str(item.source.size_bytes),
         "X-Content-SHA256": item.source.sha256,
+        "X-Content-Type-Options": "nosniff",
     }
     return StreamingResponse(_chunks(stream), media_type=item.source.media_type, headers=headers)
 

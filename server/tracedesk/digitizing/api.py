@@ -25,6 +25,8 @@ from tracedesk.digitizing.schemas import (
 from tracedesk.digitizing.service import mark_work_started, rederive_sheet
 from tracedesk.digitizing.sheet_image import load_sheet_image
 from tracedesk.errors import Unprocessable
+from tracedesk.jobs.schemas import JobRead
+from tracedesk.jobs.service import job_read, submit_job
 from tracedesk.models import Sheet, Trace
 from tracedesk.web.conditional import require_if_match, set_etag
 from tracedesk.web.deps import Principal, SessionDep, requires
@@ -100,13 +102,38 @@ def _auto_trace(request: Request, sheet_id: int, body: AutoTraceRequest, princip
         return _trace_read(session, trace)
 
 
-@router.post("/sheets/{sheet_id}/traces/auto", response_model=TraceRead, status_code=201)
-async def auto_trace(sheet_id: int, body: AutoTraceRequest, principal: Digitizer, request: Request) -> Response:
-    """Find a pen line of the given colour in a box, polygon or the calibrated area; stored as a new trace."""
+@router.post(
+    "/sheets/{sheet_id}/traces/auto",
+    response_model=TraceRead,
+    status_code=201,
+    responses={202: {"model": JobRead, "description": "queued as a background job (background=true)"}},
+)
+async def auto_trace(
+    sheet_id: int, body: AutoTraceRequest, principal: Digitizer, request: Request, background: bool = False
+) -> Response:
+    """Find a pen line of the given colour in a box, polygon or the calibrated area; stored as a new trace.
+
+    With ``background=true`` the work runs as a job: 202 with the job, whose progress is at /api/v1/jobs/{id}
+    and whose result names the new trace.
+    """
+    if background:
+        job = await run_in_threadpool(_queue_auto_trace, request, sheet_id, body, principal)
+        return JSONResponse(
+            job.model_dump(mode="json"), status_code=202, headers={"Location": f"/api/v1/jobs/{job.id}"}
+        )
     read = await run_in_threadpool(_auto_trace, request, sheet_id, body, principal)
     response = JSONResponse(read.model_dump(mode="json"), status_code=201)
     set_etag(response, "trace", read.id, read.version)
     return response
+
+
+def _queue_auto_trace(request: Request, sheet_id: int, body: AutoTraceRequest, principal: Principal) -> JobRead:
+    state = app_state(request)
+    with transaction(state.reader) as session:
+        sheet = _sheet(session, sheet_id)
+        traces.region_for(body.region, session, sheet)  # refuse a bad region now, not later in the job
+    params = {"sheet_id": sheet_id, "request": body.model_dump(mode="json")}
+    return job_read(submit_job(state, "auto_trace", params, actor=principal.actor))
 
 
 @router.get("/sheets/{sheet_id}/traces", response_model=list[TraceRead])

@@ -15,6 +15,7 @@ from tracedesk.digitizing.traces import samples_of
 from tracedesk.errors import NotFound, Unprocessable
 from tracedesk.models import Fit, Trace
 from tracedesk.science.equations import write_equation
+from tracedesk.science.errors import ScienceInputError
 from tracedesk.science.fit_result import FitResult
 from tracedesk.science.fitting import fit_model
 from tracedesk.science.model_choice import suggest_model
@@ -44,7 +45,12 @@ def compute_fit(session: Session, trace: Trace, family: str, options: dict[str, 
 
 
 def _equation_dict(result: FitResult) -> dict[str, str]:
-    equation = write_equation(result)
+    """The equation four ways; a smoothing spline has no single closed formula, and says so."""
+    try:
+        equation = write_equation(result)
+    except ScienceInputError as error:
+        note = f"no closed-form equation: {error}"
+        return {"text": note, "latex": "", "python": "", "spreadsheet": ""}
     return {
         "text": equation.plain,
         "latex": equation.latex,

@@ -11,9 +11,9 @@ import numpy as np
 from sqlalchemy.orm import Session
 
 from tracedesk.digitizing.calibrations import require_calibration, x_unit_of
-from tracedesk.digitizing.csv_cells import Cell, unit_label, write_csv
 from tracedesk.digitizing.fits import fit_inputs, get_fit, refit
 from tracedesk.errors import Unprocessable
+from tracedesk.exports.csv_cells import Cell, unit_label, write_csv
 from tracedesk.models import Trace
 from tracedesk.science.axes import elapsed_hours_to_iso, parse_iso_datetime
 from tracedesk.science.resampling import ResampledSeries, resample_fit, resample_samples, uniform_grid

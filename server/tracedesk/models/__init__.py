@@ -5,10 +5,16 @@ from tracedesk.models.audit_event import AuditChainHead, AuditEvent
 from tracedesk.models.base import Base
 from tracedesk.models.calibration import Calibration
 from tracedesk.models.collection import Collection
+from tracedesk.models.collection_workflow import CollectionWorkflow
 from tracedesk.models.fit import Fit
+from tracedesk.models.job import Job
 from tracedesk.models.login_attempt import LoginAttempt
+from tracedesk.models.notice import Notice
+from tracedesk.models.review_comment import ReviewComment
 from tracedesk.models.sheet import Sheet
+from tracedesk.models.signature import Signature
 from tracedesk.models.source_file import SourceFile
+from tracedesk.models.task import Task
 from tracedesk.models.trace import Trace
 from tracedesk.models.user import User
 from tracedesk.models.web_session import WebSession
@@ -20,10 +26,16 @@ __all__ = [
     "Base",
     "Calibration",
     "Collection",
+    "CollectionWorkflow",
     "Fit",
+    "Job",
     "LoginAttempt",
+    "Notice",
+    "ReviewComment",
     "Sheet",
+    "Signature",
     "SourceFile",
+    "Task",
     "Trace",
     "User",
     "WebSession",

@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
 from argon2 import PasswordHasher
 from fastapi import Request
@@ -11,6 +11,7 @@ from sqlalchemy import Engine
 from sqlalchemy.orm import Session, sessionmaker
 
 from tracedesk.config import Settings
+from tracedesk.jobs.protocol import JobDispatcher
 from tracedesk.storage import FileStore
 
 
@@ -23,6 +24,7 @@ class AppState:
     hasher: PasswordHasher
     store: FileStore
     templates: Jinja2Templates
+    dispatcher: JobDispatcher = field(init=False)
 
 
 def app_state(request: Request) -> AppState:

@@ -1,0 +1,76 @@
+"""Why an upload was refused, as exceptions that carry the HTTP status the web layer should answer with.
+
+Every refusal names the problem in `reason`, in words a user can act on ("the file is a GIF image; upload PNG,
+JPEG, TIFF or PDF"). Nothing here imports web code: the API layer maps `http_status` and `code` to a response.
+"""
+
+from __future__ import annotations
+
+
+class UploadRefused(Exception):
+    """An uploaded file that Tracedesk will not turn into sheets.
+
+    Parameters
+    ----------
+    reason
+        A sentence for the user naming what is wrong with the file.
+    """
+
+    http_status = 422
+    code = "upload_refused"
+
+    def __init__(self, reason: str) -> None:
+        super().__init__(reason)
+        self.reason = reason
+
+
+class UnsupportedFileType(UploadRefused):
+    """The content is not PNG, JPEG, TIFF or PDF, or it does not match the type the upload declared."""
+
+    http_status = 415
+    code = "unsupported_file_type"
+
+
+class UploadTooLarge(UploadRefused):
+    """A size cap was exceeded (bytes, pixels, page box or page count); 413 Content Too Large."""
+
+    http_status = 413
+    code = "upload_too_large"
+
+
+class FileTooLarge(UploadTooLarge):
+    """More bytes than the configured maximum file size."""
+
+    code = "file_too_large"
+
+
+class TooManyPixels(UploadTooLarge):
+    """A page (image, TIFF frame or rendered PDF page) would exceed the pixel or side-length cap."""
+
+    code = "too_many_pixels"
+
+
+class TooManyPages(UploadTooLarge):
+    """More TIFF frames or PDF pages than the configured maximum."""
+
+    code = "too_many_pages"
+
+
+class CorruptUpload(UploadRefused):
+    """The declared type matches but the content is empty, truncated, damaged or cannot be decoded."""
+
+    http_status = 422
+    code = "corrupt_upload"
+
+
+class EncryptedDocument(CorruptUpload):
+    """A password-protected PDF: we cannot render it without the password."""
+
+    code = "encrypted_document"
+
+
+class UnsupportedImageVariant(UploadRefused):
+    """An accepted format holding pixels we do not convert (e.g. 32-bit float or signed TIFF samples)."""
+
+    http_status = 422
+    code = "unsupported_image_variant"

@@ -1,0 +1,67 @@
+"""Caps that keep decoding bounded in memory and time, whatever the upload claims about itself.
+
+The defaults match `tracedesk.config.Settings` (512 MiB, 120 Mpx, 500 pages, 300 dpi). 120 Mpx holds an A3 sheet
+at 600 dpi (about 7000 x 9900 px = 69 Mpx) with room to spare; an A0 plot at 300 dpi (139 Mpx) needs a lower
+PDF resolution or a raised cap.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+#: Pillow's own bomb threshold (`PIL.Image.MAX_IMAGE_PIXELS`), set once by `tracedesk.imaging.decode`.
+#: Our per-page cap must stay at or below it so Pillow's warning only ever fires on files we refuse anyway.
+PILLOW_PIXEL_CEILING = 250_000_000
+
+DEFAULT_MAX_FILE_BYTES = 512 * 1024 * 1024
+DEFAULT_MAX_PIXELS_PER_PAGE = 120_000_000
+DEFAULT_MAX_PAGES = 500
+#: A 1 x 120 Mpx image passes the pixel cap but would make a pyramid of ~470 000 tiles: cap each side too.
+DEFAULT_MAX_SIDE_PIXELS = 100_000
+DEFAULT_PDF_DPI = 300.0
+#: PDFs are rendered between these resolutions (dots per inch); outside them the request is a mistake.
+PDF_DPI_RANGE = (36.0, 1200.0)
+
+
+@dataclass(frozen=True, slots=True)
+class DecodeLimits:
+    """The caps applied to one upload.
+
+    Attributes
+    ----------
+    max_file_bytes
+        Largest accepted file, in bytes.
+    max_pixels_per_page
+        Largest width x height of any page (image, TIFF frame, or PDF page at the render resolution), in pixels.
+        At most `PILLOW_PIXEL_CEILING`.
+    max_pages
+        Most TIFF frames or PDF pages in one file.
+    max_side_pixels
+        Longest accepted width or height of any page, in pixels.
+    """
+
+    max_file_bytes: int = DEFAULT_MAX_FILE_BYTES
+    max_pixels_per_page: int = DEFAULT_MAX_PIXELS_PER_PAGE
+    max_pages: int = DEFAULT_MAX_PAGES
+    max_side_pixels: int = DEFAULT_MAX_SIDE_PIXELS
+
+    def __post_init__(self) -> None:
+        for name in ("max_file_bytes", "max_pixels_per_page", "max_pages", "max_side_pixels"):
+            if getattr(self, name) < 1:
+                raise ValueError(f"DecodeLimits.{name} must be a positive integer")
+        if self.max_pixels_per_page > PILLOW_PIXEL_CEILING:
+            raise ValueError(
+                f"DecodeLimits.max_pixels_per_page={self.max_pixels_per_page} is above the decoder ceiling "
+                f"of {PILLOW_PIXEL_CEILING} pixels"
+            )
+
+
+DEFAULT_LIMITS = DecodeLimits()
+
+
+def check_pdf_dpi(pdf_dpi: float) -> float:
+    """Return `pdf_dpi` if it is a sensible render resolution, else raise ValueError (a caller's mistake)."""
+    low, high = PDF_DPI_RANGE
+    if not low <= pdf_dpi <= high:
+        raise ValueError(f"pdf_dpi must be between {low:g} and {high:g} dots per inch, got {pdf_dpi!r}")
+    return float(pdf_dpi)

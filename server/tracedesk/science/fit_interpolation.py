@@ -1,0 +1,160 @@
+"""Exact polynomial interpolation through ``n + 1`` equally spaced nodes.
+
+The polynomial is held in barycentric form: with nodes ``x_j = x_0 + j h`` the barycentric weights
+are ``w_j = (-1)^j binom(n, j)`` (any common factor cancels), and
+``p(x) = sum_j w_j f_j / (x - x_j) / sum_j w_j / (x - x_j)``, which evaluates stably and returns the
+node values exactly at the nodes (Berrut & Trefethen, "Barycentric Lagrange interpolation",
+SIAM Review 46(3), 2004; from memory). Power-basis coefficients come from Newton's forward differences
+in exact rational arithmetic (:func:`tracedesk.science.fit_power_basis.newton_forward_to_power`).
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+from typing import Final
+
+import numpy as np
+from numpy.typing import ArrayLike
+
+from tracedesk.science.errors import ScienceInputError
+from tracedesk.science.fit_inputs import FloatArray, check_degree, check_samples, merge_duplicate_x
+from tracedesk.science.fit_polynomial import MAX_POLYNOMIAL_DEGREE, polynomial_warnings
+from tracedesk.science.fit_power_basis import newton_forward_to_power
+from tracedesk.science.fit_result import FitResult
+from tracedesk.science.fit_stats import STAT_NAMES
+
+# Steps may differ by this fraction of the mean step and still count as equal (rounded x of a trace).
+SPACING_TOLERANCE: Final = 1e-9
+# Equally spaced interpolation of higher degree oscillates near the ends (Runge's phenomenon).
+RUNGE_DEGREE: Final = 8
+
+
+def equispaced_barycentric_weights(degree: int) -> FloatArray:
+    """Barycentric weights ``(-1)^j binom(n, j)`` of ``n + 1`` equally spaced nodes."""
+    return np.array([(-1) ** j * math.comb(degree, j) for j in range(degree + 1)], dtype=np.float64)
+
+
+@dataclass(frozen=True)
+class BarycentricModel:
+    """Interpolating polynomial through ``(nodes, values)`` with barycentric ``weights``."""
+
+    nodes: FloatArray
+    values: FloatArray
+    weights: FloatArray
+    internal_covariance: FloatArray | None
+
+    def parameter_gradient(self, x: FloatArray) -> FloatArray:
+        """Lagrange basis ``l_j(x)``: the derivative of ``p(x)`` with respect to node value ``f_j``."""
+        difference = x[:, None] - self.nodes[None, :]
+        exact = difference == 0.0
+        with np.errstate(divide="ignore", invalid="ignore"):
+            terms = self.weights[None, :] / difference
+            basis = terms / terms.sum(axis=1, keepdims=True)
+        hit = exact.any(axis=1)
+        basis[hit] = exact[hit].astype(np.float64)
+        result: FloatArray = basis
+        return result
+
+    def evaluate(self, x: FloatArray) -> FloatArray:
+        """``p(x)`` (``y`` units); the node values exactly at the nodes."""
+        values: FloatArray = self.parameter_gradient(x) @ self.values
+        return values
+
+
+def fit_interpolation(x: ArrayLike, y: ArrayLike, *, degree: int | None = None) -> FitResult:
+    """Polynomial of degree ``n`` through ``n + 1`` equally spaced nodes.
+
+    Parameters
+    ----------
+    x, y : array_like
+        Either exactly ``n + 1`` samples at equally spaced ``x`` (the nodes), or, with ``degree``
+        given, a trace from which the node values are read by linear interpolation.
+    degree : int, optional
+        ``n`` (0 to 15); default one less than the number of samples.
+
+    Returns
+    -------
+    FitResult
+        ``parameters`` is ``{"nodes", "values", "weights", "coefficients"}`` (barycentric weights and
+        power-basis ``c0..cn``); standard errors are zero because the curve passes through the nodes
+        by construction.
+    """
+    samples = check_samples(x, y, None, minimum=1)
+    merged = merge_duplicate_x(samples.x, samples.y, samples.weights)
+    node_count = (
+        merged.x.size
+        if degree is None
+        else check_degree(degree, family="interpolation", maximum=MAX_POLYNOMIAL_DEGREE) + 1
+    )
+    if node_count - 1 > MAX_POLYNOMIAL_DEGREE:
+        raise ScienceInputError(
+            f"exact interpolation is limited to {MAX_POLYNOMIAL_DEGREE + 1} nodes, got {node_count} samples; "
+            "give a degree to read fewer nodes from the trace"
+        )
+    messages: list[str] = []
+    if node_count == merged.x.size:
+        _check_equal_spacing(merged.x)
+        values = merged.y
+    else:
+        if node_count > merged.x.size:
+            raise ScienceInputError(f"degree {node_count - 1} needs {node_count} samples, got {merged.x.size}")
+        values = np.interp(np.linspace(merged.x[0], merged.x[-1], node_count), merged.x, merged.y)
+        messages.append("The node values were read from the trace by linear interpolation between samples.")
+    return _interpolation_result(merged.x[0], merged.x[-1], values, messages)
+
+
+def _check_equal_spacing(x: FloatArray) -> None:
+    if x.size < 3:
+        return
+    steps = np.diff(x)
+    mean_step = (x[-1] - x[0]) / (x.size - 1)
+    if float(np.max(np.abs(steps - mean_step))) > SPACING_TOLERANCE * mean_step:
+        raise ScienceInputError(
+            "exact interpolation needs equally spaced x; these samples are not (give a degree to read "
+            "equally spaced node values from the trace instead)"
+        )
+
+
+def _exact_stats(count: int) -> dict[str, float | int | None]:
+    """Statistics of a curve through its nodes by construction: nothing to estimate."""
+    stats: dict[str, float | int | None] = dict.fromkeys(STAT_NAMES, None)
+    stats.update(n=count, dof=0)
+    return stats
+
+
+def _interpolation_result(start: float, stop: float, values: FloatArray, messages: list[str]) -> FitResult:
+    degree = values.size - 1
+    step = (stop - start) / degree if degree else 1.0
+    nodes = np.asarray(start + step * np.arange(degree + 1), dtype=np.float64)
+    if degree:
+        nodes[-1] = stop
+    weights = equispaced_barycentric_weights(degree)
+    coefficients = newton_forward_to_power(values.tolist(), start=start, step=step)
+    domain = (float(start), float(stop))
+    messages += polynomial_warnings(coefficients, domain=domain, condition=1.0)
+    if degree >= RUNGE_DEGREE:
+        messages.append(
+            f"A degree {degree} polynomial through equally spaced nodes can swing far from the trace "
+            "between the outer nodes (Runge's phenomenon); a least-squares polynomial or spline is safer."
+        )
+    zeros = [0.0] * (degree + 1)
+    return FitResult(
+        family="interpolation",
+        parameters={
+            "nodes": nodes.tolist(),
+            "values": values.tolist(),
+            "weights": weights.tolist(),
+            "coefficients": coefficients.tolist(),
+        },
+        standard_errors={"nodes": zeros, "values": zeros, "weights": zeros, "coefficients": zeros},
+        parameter_names=tuple(f"c{k}" for k in range(degree + 1)),
+        covariance=np.zeros((degree + 1, degree + 1)),
+        stats=_exact_stats(degree + 1),
+        domain=domain,
+        warnings=tuple(messages),
+        options={"degree": degree},
+        model=BarycentricModel(
+            nodes, np.asarray(values, dtype=np.float64), weights, np.zeros((degree + 1, degree + 1))
+        ),
+    )

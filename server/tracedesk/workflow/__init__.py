@@ -1,0 +1,1 @@
+"""Team workflow: tasks and their state machine, review comments, signatures, double digitization, notices."""
