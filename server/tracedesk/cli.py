@@ -198,6 +198,59 @@ def audit_verify() -> None:
     _fail(f"audit chain BROKEN at sequence number {report.first_broken_seq}: {report.problem}", 1)
 
 
+@main.command()
+@click.argument("destination", type=click.Path(path_type=Path))
+def backup(destination: Path) -> None:
+    """Back up the database, the stored files and the audit chain into a new folder DESTINATION."""
+    from tracedesk.maintenance.backup import BackupError, backup_archive
+
+    state = _state()
+    try:
+        manifest = backup_archive(state, destination, progress=click.echo)
+    except BackupError as error:
+        _fail(f"backup failed: {error}", 1)
+    counts = manifest["inventory"]["row_counts"]
+    click.echo(
+        f"backup written to {destination}: {counts.get('sheets', 0)} sheet(s), "
+        f"{counts.get('audit_events', 0)} audit event(s)"
+    )
+
+
+@main.command()
+@click.argument("source", type=click.Path(exists=True, file_okay=False, path_type=Path))
+def restore(source: Path) -> None:
+    """Restore a backup folder SOURCE into the configured (new, empty) database and data folder, then check it."""
+    from tracedesk.maintenance.backup import BackupError, restore_archive
+
+    state = _state(migrate=False)
+    try:
+        inventory = restore_archive(state, source, progress=click.echo)
+    except BackupError as error:
+        _fail(f"restore failed: {error}", 1)
+    click.echo(f"restored and checked: {inventory['row_counts'].get('sheets', 0)} sheet(s), audit chain intact")
+
+
+@main.command("move-to-postgres")
+@click.argument("target_url")
+def move_to_postgres_command(target_url: str) -> None:
+    """Copy the embedded SQLite archive into the PostgreSQL database TARGET_URL (ids, audit chain kept).
+
+    Afterwards set TRACEDESK_DATABASE_URL=TARGET_URL; the files stay in the same data folder or object store.
+    """
+    from tracedesk.maintenance.backup import BackupError
+    from tracedesk.maintenance.move import move_to_postgres
+
+    settings = Settings()
+    source = build_engine(settings.resolved_database_url)
+    target = build_engine(target_url)
+    try:
+        counts = move_to_postgres(source, target, progress=click.echo)
+    except BackupError as error:
+        _fail(f"move failed: {error}", 1)
+    click.echo(f"moved {sum(counts.values())} row(s); audit chain verified on PostgreSQL")
+    click.echo(f"now set TRACEDESK_DATABASE_URL={target.url.render_as_string(hide_password=True)}")
+
+
 @main.command("import")
 @click.argument("folder", type=click.Path(exists=True, file_okay=False, path_type=Path))
 @click.option("--collection", "collection_name", required=True, help="collection name (created if missing)")

@@ -7,7 +7,7 @@ import json
 from dataclasses import dataclass
 from typing import Any
 
-from sqlalchemy import and_, func, or_, select
+from sqlalchemy import func, or_, select
 from sqlalchemy.orm import Session
 
 from tracedesk.archive.schemas import CollectionCreate, CollectionUpdate, SheetUpdate
@@ -162,7 +162,7 @@ def list_sheets(
     query = (
         select(Sheet, SourceFile)
         .join(SourceFile, SourceFile.id == Sheet.source_file_id)
-        .where(and_(*conditions))
+        .where(*conditions)
         .order_by(Sheet.id)
         .limit(limit + 1)
     )
