@@ -1,0 +1,260 @@
+"""Bounded load test on loopback: simulated technicians saving trace edits and reading tiles.
+
+Usage: .venv/bin/python bench/bench_load.py [--users 50] [--seconds 60] [--postgres URL]
+
+Starts the real server (uvicorn subprocess on 127.0.0.1, a temp data folder), prepares one sheet with a
+calibration and one trace per technician, then runs every technician as a loop of "save my trace (PATCH with
+If-Match)" and "read a tile" until the time is up. Reports p50/p95/p99 per request kind, the error rate, and
+checks that the audit trail holds exactly one update event per acknowledged save (0 lost writes).
+Everything stays on the loopback interface and stops by itself (count- and time-limited).
+"""
+
+from __future__ import annotations
+
+import argparse
+import asyncio
+import os
+import socket
+import subprocess
+import sys
+import tempfile
+import time
+from pathlib import Path
+
+import httpx
+import numpy as np
+from sqlalchemy import func, select
+
+ROOT = Path(__file__).resolve().parents[1]
+sys.path.insert(0, str(ROOT))
+
+from tests.archive.scans import png_bytes  # noqa: E402
+
+from tracedesk.accounts.service import create_api_token, create_user  # noqa: E402
+from tracedesk.app import build_state  # noqa: E402
+from tracedesk.audit.service import SYSTEM  # noqa: E402
+from tracedesk.config import Settings  # noqa: E402
+from tracedesk.db import transaction  # noqa: E402
+from tracedesk.migrate import upgrade_database  # noqa: E402
+from tracedesk.models import AuditEvent  # noqa: E402
+
+MAX_REQUESTS_PER_USER = 100_000
+
+
+def free_port() -> int:
+    with socket.socket() as probe:
+        probe.bind(("127.0.0.1", 0))
+        return int(probe.getsockname()[1])
+
+
+def prepare(settings: Settings, users: int) -> list[str]:
+    state = build_state(settings, migrate=False)
+    upgrade_database(state.engine)
+    tokens = []
+    with transaction(state.writer) as session:
+        for index in range(users):
+            user = create_user(
+                session,
+                state.hasher,
+                actor=SYSTEM,
+                username=f"tech{index:03d}",
+                password="load test password",
+                role="technician",
+            )
+            tokens.append(create_api_token(session, user, name="load", actor=SYSTEM)[0])
+    state.engine.dispose()
+    return tokens
+
+
+def start_server(settings: Settings, port: int, workers: int) -> subprocess.Popen[bytes]:
+    env = {
+        **os.environ,
+        "TRACEDESK_DATA_DIR": str(settings.data_dir),
+        "TRACEDESK_ENVIRONMENT": "test",
+        "TRACEDESK_DATABASE_URL": settings.resolved_database_url,
+        "OPENBLAS_NUM_THREADS": "1",
+    }
+    command = [
+        sys.executable,
+        "-m",
+        "uvicorn",
+        "tracedesk.asgi:app",
+        "--host",
+        "127.0.0.1",
+        "--port",
+        str(port),
+        "--workers",
+        str(workers),
+        "--log-level",
+        "warning",
+    ]
+    server = subprocess.Popen(command, env=env, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
+    deadline = time.monotonic() + 60
+    while time.monotonic() < deadline:
+        try:
+            if httpx.get(f"http://127.0.0.1:{port}/api/v1/health", timeout=1).status_code == 200:
+                return server
+        except httpx.HTTPError:
+            time.sleep(0.2)
+    server.kill()
+    raise SystemExit("the server did not start")
+
+
+def seed_sheet(base: str, token: str, users: int, tokens: list[str]) -> tuple[int, list[int]]:
+    headers = {"Authorization": f"Bearer {token}"}
+    with httpx.Client(base_url=base, headers=headers, timeout=60) as client:
+        collection = client.post("/api/v1/collections", json={"name": "Load"}).json()["id"]
+        files = [("files", ("load.png", png_bytes(width=1600, height=1000), "image/png"))]
+        sheet = client.post(f"/api/v1/collections/{collection}/sheets", files=files).json()["sheets"][0]["id"]
+        points = [
+            {"pixel": [u, v], "value": [x, y]}
+            for u, v, x, y in [(100, 900, 0, 0), (1500, 900, 24, 0), (1500, 100, 24, 10), (100, 100, 0, 10)]
+        ]
+        client.put(
+            f"/api/v1/sheets/{sheet}/calibration",
+            json={
+                "kind": "cartesian",
+                "x_axis": {"scale": "time"},
+                "y_axis": {"scale": "linear"},
+                "control_points": points,
+            },
+        )
+    trace_ids = []
+    for index in range(users):
+        with httpx.Client(base_url=base, headers={"Authorization": f"Bearer {tokens[index]}"}, timeout=60) as client:
+            vertices = np.column_stack([np.linspace(110, 1490, 200), np.full(200, 500.0)]).tolist()
+            trace_ids.append(
+                client.post(
+                    f"/api/v1/sheets/{sheet}/traces", json={"name": f"pen {index}", "vertices": vertices}
+                ).json()["id"]
+            )
+    return sheet, trace_ids
+
+
+async def technician(
+    base: str,
+    token: str,
+    sheet: int,
+    trace_id: int,
+    until: float,
+    timings: dict[str, list[float]],
+    errors: list[str],
+    saves: list[int],
+) -> None:
+    rng = np.random.default_rng(trace_id)
+    headers = {"Authorization": f"Bearer {token}"}
+    async with httpx.AsyncClient(base_url=base, headers=headers, timeout=30) as client:
+        etag = (await client.get(f"/api/v1/traces/{trace_id}")).headers["etag"]
+        for _ in range(MAX_REQUESTS_PER_USER):
+            if time.monotonic() >= until:
+                return
+            vertices = np.column_stack([np.linspace(110, 1490, 200), 500 + rng.normal(0, 3, 200)]).tolist()
+            started = time.perf_counter()
+            response = await client.patch(
+                f"/api/v1/traces/{trace_id}", json={"vertices": vertices}, headers={"If-Match": etag}
+            )
+            timings["save"].append(time.perf_counter() - started)
+            if response.status_code == 200:
+                etag = response.headers["etag"]
+                saves.append(trace_id)
+            else:
+                errors.append(f"save {response.status_code}")
+            started = time.perf_counter()
+            tile = await client.get(f"/api/v1/sheets/{sheet}/tiles/sheet_files/10/{rng.integers(0, 3)}_0.jpg")
+            timings["tile"].append(time.perf_counter() - started)
+            if tile.status_code != 200:
+                errors.append(f"tile {tile.status_code}")
+
+
+def percentile(values: list[float], q: float) -> float:
+    return float(np.percentile(np.asarray(values) * 1000, q)) if values else float("nan")
+
+
+def run(label: str, settings: Settings, users: int, seconds: float, workers: int) -> None:
+    tokens = prepare(settings, users)
+    port = free_port()
+    server = start_server(settings, port, workers)
+    base = f"http://127.0.0.1:{port}"
+    try:
+        sheet, trace_ids = seed_sheet(base, tokens[0], users, tokens)
+        timings: dict[str, list[float]] = {"save": [], "tile": []}
+        errors: list[str] = []
+        saves: list[int] = []
+        until = time.monotonic() + seconds
+
+        async def everyone() -> None:
+            await asyncio.gather(
+                *(technician(base, tokens[i], sheet, trace_ids[i], until, timings, errors, saves) for i in range(users))
+            )
+
+        asyncio.run(everyone())
+    finally:
+        server.terminate()
+        server.wait(timeout=30)
+    state = build_state(settings, migrate=False)
+    with transaction(state.reader) as session:
+        audited = (
+            session.scalar(
+                select(func.count())
+                .select_from(AuditEvent)
+                .where(AuditEvent.entity_type == "trace", AuditEvent.action == "update")
+            )
+            or 0
+        )
+    state.engine.dispose()
+    total = len(timings["save"]) + len(timings["tile"])
+    print(
+        f"| {label} | {users} | {seconds:.0f} | "
+        f"{percentile(timings['save'], 50):.1f} / {percentile(timings['save'], 95):.1f} / "
+        f"{percentile(timings['save'], 99):.1f} | "
+        f"{percentile(timings['tile'], 50):.1f} / {percentile(timings['tile'], 95):.1f} / "
+        f"{percentile(timings['tile'], 99):.1f} | {len(saves)} | {len(errors)}/{total} | "
+        f"{'0' if audited == len(saves) else f'MISMATCH {audited} audited'} |"
+    )
+
+
+def main() -> None:
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("--users", type=int, default=50)
+    parser.add_argument("--seconds", type=float, default=60.0)
+    parser.add_argument(
+        "--postgres",
+        default=os.environ.get("TRACEDESK_TEST_POSTGRES_URL"),
+        help="a PostgreSQL URL of an empty database or schema (optional)",
+    )
+    args = parser.parse_args()
+    print(
+        "| database | technicians | seconds | save p50 / p95 / p99 (ms) | tile p50 / p95 / p99 (ms) |"
+        " saves acknowledged | errors | lost writes |"
+    )
+    print("|---|---|---|---|---|---|---|---|")
+    with tempfile.TemporaryDirectory() as folder:
+        sqlite = Settings(
+            environment="test",
+            data_dir=Path(folder) / "sqlite",
+            database_url=f"sqlite:///{Path(folder) / 'load.sqlite3'}",
+        )
+        run("SQLite, 1 web worker", sqlite, args.users, args.seconds, workers=1)
+        if args.postgres:
+            schema_url = fresh_schema(args.postgres)
+            postgres = Settings(environment="test", data_dir=Path(folder) / "pg", database_url=schema_url)
+            run("PostgreSQL, 2 web workers", postgres, args.users, args.seconds, workers=2)
+
+
+def fresh_schema(base: str) -> str:
+    """A new, empty schema in the given PostgreSQL database, so the bench never touches existing data."""
+    import secrets
+
+    from sqlalchemy import create_engine, text
+
+    schema = f"bench_{secrets.token_hex(4)}"
+    engine = create_engine(base, isolation_level="AUTOCOMMIT")
+    with engine.connect() as connection:
+        connection.execute(text(f"CREATE SCHEMA {schema}"))
+    engine.dispose()
+    separator = "&" if "?" in base else "?"
+    return f"{base}{separator}options=-csearch_path%3D{schema}"
+
+
+if __name__ == "__main__":
+    main()
