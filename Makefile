@@ -41,7 +41,8 @@ unit:
 	$(BIN)/pytest -n 2 $(PYTEST_ARGS)
 
 bench: $(VENV)/.test-installed
-	for script in bench/bench_*.py; do echo "== $$script"; $(BIN)/python $$script || exit 1; done
+	for script in bench/bench_*.py; do name=$$(basename $$script .py); echo "== $$name"; \
+		$(BIN)/python -m bench.$$name || exit 1; done
 
 clean:
 	rm -rf $(VENV) .mypy_cache .ruff_cache .pytest_cache
