@@ -1,11 +1,12 @@
 """Bounded load test on loopback: simulated technicians saving trace edits and reading tiles.
 
-Usage: .venv/bin/python bench/bench_load.py [--users 50] [--seconds 60] [--postgres URL]
+Usage: .venv/bin/python -m bench.bench_load [--users 50] [--seconds 60] [--think 1] [--postgres URL]
 
-Starts the real server (uvicorn subprocess on 127.0.0.1, a temp data folder), prepares one sheet with a
-calibration and one trace per technician, then runs every technician as a loop of "save my trace (PATCH with
-If-Match)" and "read a tile" until the time is up. Reports p50/p95/p99 per request kind, the error rate, and
-checks that the audit trail holds exactly one update event per acknowledged save (0 lost writes).
+Each technician saves about once a second (``--think``), like the workbench's autosave. Starts the real server
+(uvicorn subprocess on 127.0.0.1, a temp data folder), prepares one sheet with a calibration and one trace per
+technician, then runs every technician as a loop of "save my trace (PATCH with If-Match)" and "read a tile"
+until the time is up. Reports p50/p95/p99 per request kind, the error rate, and checks that the audit trail
+holds exactly one update event per acknowledged save (0 lost writes).
 Everything stays on the loopback interface and stops by itself (count- and time-limited).
 """
 
@@ -88,7 +89,8 @@ def start_server(settings: Settings, port: int, workers: int) -> subprocess.Pope
         "--log-level",
         "warning",
     ]
-    server = subprocess.Popen(command, env=env, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
+    log = open(Path(tempfile.gettempdir()) / f"tracedesk-bench-server-{port}.log", "wb")  # noqa: SIM115 - lives as long as the server
+    server = subprocess.Popen(command, env=env, stdout=log, stderr=subprocess.STDOUT)
     deadline = time.monotonic() + 60
     while time.monotonic() < deadline:
         try:
@@ -137,6 +139,7 @@ async def technician(
     sheet: int,
     trace_id: int,
     until: float,
+    think: float,
     timings: dict[str, list[float]],
     errors: list[str],
     saves: list[int],
@@ -160,17 +163,23 @@ async def technician(
             else:
                 errors.append(f"save {response.status_code}")
             started = time.perf_counter()
-            tile = await client.get(f"/api/v1/sheets/{sheet}/tiles/sheet_files/10/{rng.integers(0, 3)}_0.jpg")
+            try:
+                tile = await client.get(f"/api/v1/sheets/{sheet}/tiles/sheet_files/10/{rng.integers(0, 3)}_0.jpg")
+            except httpx.HTTPError as error:
+                errors.append(f"tile {type(error).__name__}")
+                continue
             timings["tile"].append(time.perf_counter() - started)
             if tile.status_code != 200:
                 errors.append(f"tile {tile.status_code}")
+            # A person edits between autosaves; think=0 turns the run into a closed-loop stress test.
+            await asyncio.sleep(float(rng.uniform(0.5, 1.5)) * think)
 
 
 def percentile(values: list[float], q: float) -> float:
     return float(np.percentile(np.asarray(values) * 1000, q)) if values else float("nan")
 
 
-def run(label: str, settings: Settings, users: int, seconds: float, workers: int) -> None:
+def run(label: str, settings: Settings, users: int, seconds: float, workers: int, think: float) -> None:
     tokens = prepare(settings, users)
     port = free_port()
     server = start_server(settings, port, workers)
@@ -184,13 +193,20 @@ def run(label: str, settings: Settings, users: int, seconds: float, workers: int
 
         async def everyone() -> None:
             await asyncio.gather(
-                *(technician(base, tokens[i], sheet, trace_ids[i], until, timings, errors, saves) for i in range(users))
+                *(
+                    technician(base, tokens[i], sheet, trace_ids[i], until, think, timings, errors, saves)
+                    for i in range(users)
+                )
             )
 
         asyncio.run(everyone())
     finally:
         server.terminate()
         server.wait(timeout=30)
+        log_path = Path(tempfile.gettempdir()) / f"tracedesk-bench-server-{port}.log"
+        problems = [line for line in log_path.read_text(errors="replace").splitlines() if "Error" in line]
+        if problems:
+            print(f"server log of {label}: {len(problems)} error line(s), first: {problems[0][:200]}")
     state = build_state(settings, migrate=False)
     with transaction(state.reader) as session:
         audited = (
@@ -218,6 +234,12 @@ def main() -> None:
     parser.add_argument("--users", type=int, default=50)
     parser.add_argument("--seconds", type=float, default=60.0)
     parser.add_argument(
+        "--think",
+        type=float,
+        default=1.0,
+        help="mean seconds a technician spends between two autosaves (0: closed-loop stress)",
+    )
+    parser.add_argument(
         "--postgres",
         default=os.environ.get("TRACEDESK_TEST_POSTGRES_URL"),
         help="a PostgreSQL URL of an empty database or schema (optional)",
@@ -228,17 +250,17 @@ def main() -> None:
         " saves acknowledged | errors | lost writes |"
     )
     print("|---|---|---|---|---|---|---|---|")
-    with tempfile.TemporaryDirectory() as folder:
+    with tempfile.TemporaryDirectory(prefix="bench-load-") as folder:
         sqlite = Settings(
             environment="test",
             data_dir=Path(folder) / "sqlite",
             database_url=f"sqlite:///{Path(folder) / 'load.sqlite3'}",
         )
-        run("SQLite, 1 web worker", sqlite, args.users, args.seconds, workers=1)
+        run("SQLite, 1 web worker", sqlite, args.users, args.seconds, workers=1, think=args.think)
         if args.postgres:
             schema_url = fresh_schema(args.postgres)
             postgres = Settings(environment="test", data_dir=Path(folder) / "pg", database_url=schema_url)
-            run("PostgreSQL, 2 web workers", postgres, args.users, args.seconds, workers=2)
+            run("PostgreSQL, 2 web workers", postgres, args.users, args.seconds, workers=2, think=args.think)
 
 
 def fresh_schema(base: str) -> str:

@@ -20,6 +20,8 @@ from tracedesk.db import build_engine, session_factory, writer_engine
 from tracedesk.digitizing import api as digitizing_api
 from tracedesk.digitizing import pages as digitizing_pages
 from tracedesk.digitizing import workbench_api
+from tracedesk.exports import api as exports_api
+from tracedesk.exports import pages as exports_pages
 from tracedesk.jobs import api as jobs_api
 from tracedesk.jobs.dispatch import build_dispatcher
 from tracedesk.migrate import readiness_problems, upgrade_database
@@ -28,6 +30,8 @@ from tracedesk.web.error_handlers import install_error_handlers
 from tracedesk.web.request_log import RequestLogMiddleware
 from tracedesk.web.state import AppState
 from tracedesk.web.templating import build_templates, web_root
+from tracedesk.workflow import api as workflow_api
+from tracedesk.workflow import pages as workflow_pages
 
 API_DESCRIPTION = (
     "Tracedesk turns archived paper chart records into trustworthy numbers. Authenticate with a browser session "
@@ -46,7 +50,7 @@ def build_state(settings: Settings, *, migrate: bool = True) -> AppState:
         settings=settings,
         engine=engine,
         reader=session_factory(engine),
-        writer=session_factory(writer_engine(engine)),
+        writer=session_factory(writer_engine(engine), exclusive=engine.dialect.name == "sqlite"),
         hasher=build_hasher(memory_kib=settings.argon2_memory_kib, time_cost=settings.argon2_time_cost),
         store=build_store(settings),
         templates=build_templates(),
@@ -76,10 +80,14 @@ def create_app(settings: Settings | None = None, *, state: AppState | None = Non
         digitizing_api.router,
         workbench_api.router,
         jobs_api.router,
+        workflow_api.router,
+        exports_api.router,
         accounts_pages.router,
         archive_pages.router,
         audit_pages.router,
         digitizing_pages.router,
+        workflow_pages.router,
+        exports_pages.router,
     ):
         app.include_router(router)
     _add_service_routes(app)

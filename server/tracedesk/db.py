@@ -2,7 +2,11 @@
 
 from __future__ import annotations
 
+import asyncio
 import sqlite3
+import threading
+import time
+import weakref
 from collections.abc import Callable, Iterator
 from contextlib import contextmanager
 from typing import Any, TypeVar
@@ -61,22 +65,70 @@ def writer_engine(engine: Engine) -> Engine:
     return engine
 
 
-def session_factory(engine: Engine) -> sessionmaker[Session]:
-    return sessionmaker(bind=engine, expire_on_commit=False, autoflush=True)
+# Writer sessions of an embedded SQLite database queue on a lock of this process before BEGIN IMMEDIATE. Without
+# it, threads of one web process compete in SQLite's busy handler (sleep-and-retry, unfair), and under load a
+# writer can wait past the busy timeout while others keep winning. Several processes still use the busy timeout.
+_WRITER_GATES: weakref.WeakKeyDictionary[sessionmaker[Session], threading.Lock] = weakref.WeakKeyDictionary()
+
+
+def session_factory(engine: Engine, *, exclusive: bool = False) -> sessionmaker[Session]:
+    """Sessions on ``engine``; ``exclusive`` ones (SQLite writers) run one at a time within this process."""
+    factory = sessionmaker(bind=engine, expire_on_commit=False, autoflush=True)
+    if exclusive:
+        _WRITER_GATES[factory] = threading.Lock()
+    return factory
+
+
+class DatabaseBusy(OperationalError):
+    """The in-process writer queue did not free up within the busy timeout."""
+
+
+def writer_gate(factory: sessionmaker[Session]) -> threading.Lock | None:
+    """The in-process writer lock of an exclusive factory, or None (PostgreSQL, readers)."""
+    return _WRITER_GATES.get(factory)
+
+
+async def acquire_without_a_thread(gate: threading.Lock) -> None:
+    """Wait for the writer lock in the event loop, so waiting requests do not hold worker threads.
+
+    (Blocking worker threads on the lock can starve the pool that the lock holder needs to finish.)
+    """
+    deadline = time.monotonic() + SQLITE_BUSY_TIMEOUT_MS / 1000
+    pause = 0.0005
+    while not gate.acquire(blocking=False):
+        if time.monotonic() > deadline:
+            raise DatabaseBusy("BEGIN IMMEDIATE", None, Exception("database is locked (writer queue timed out)"))
+        await asyncio.sleep(pause)
+        pause = min(pause * 2, 0.005)
+
+
+@contextmanager
+def _gate(factory: sessionmaker[Session]) -> Iterator[None]:
+    gate = _WRITER_GATES.get(factory)
+    if gate is None:
+        yield
+        return
+    if not gate.acquire(timeout=SQLITE_BUSY_TIMEOUT_MS / 1000):
+        raise DatabaseBusy("BEGIN IMMEDIATE", None, Exception("database is locked (writer queue timed out)"))
+    try:
+        yield
+    finally:
+        gate.release()
 
 
 @contextmanager
 def transaction(factory: sessionmaker[Session]) -> Iterator[Session]:
     """One unit of work: commit on success, roll back on any error. The CLI and jobs use this."""
-    session = factory()
-    try:
-        yield session
-        session.commit()
-    except BaseException:
-        session.rollback()
-        raise
-    finally:
-        session.close()
+    with _gate(factory):
+        session = factory()
+        try:
+            yield session
+            session.commit()
+        except BaseException:
+            session.rollback()
+            raise
+        finally:
+            session.close()
 
 
 def is_retryable(error: BaseException) -> bool:

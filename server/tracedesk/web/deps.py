@@ -3,7 +3,7 @@
 from __future__ import annotations
 
 import hmac
-from collections.abc import Callable, Coroutine, Iterator
+from collections.abc import AsyncIterator, Callable, Coroutine
 from dataclasses import dataclass
 from typing import Annotated, Any
 
@@ -14,7 +14,7 @@ from starlette.concurrency import run_in_threadpool
 from tracedesk.accounts import service as accounts
 from tracedesk.accounts.permissions import Permission, role_allows
 from tracedesk.audit.service import Actor
-from tracedesk.db import transaction
+from tracedesk.db import acquire_without_a_thread, transaction, writer_gate
 from tracedesk.errors import Forbidden, NotAuthenticated
 from tracedesk.models import User, WebSession
 from tracedesk.web.state import app_state
@@ -25,15 +25,30 @@ CSRF_HEADER = "x-csrf-token"
 CSRF_FIELD = "csrf_token"
 
 
-def get_db(request: Request) -> Iterator[Session]:
+async def get_db(request: Request) -> AsyncIterator[Session]:
     """The request's only unit of work: committed when the handler returns, rolled back on any error.
 
-    Requests that may write take the SQLite write lock at BEGIN (see ``db.writer_engine``).
+    Requests that may write take the SQLite write lock at BEGIN (see ``db.writer_engine``); within one process
+    they first queue on the writer lock, waiting in the event loop rather than in a worker thread.
     """
     state = app_state(request)
     factory = state.reader if request.method in SAFE_METHODS else state.writer
-    with transaction(factory) as session:
-        yield session
+    gate = writer_gate(factory)
+    if gate is not None:
+        await acquire_without_a_thread(gate)
+    try:
+        session = factory()
+        try:
+            yield session
+            await run_in_threadpool(session.commit)
+        except BaseException:
+            await run_in_threadpool(session.rollback)
+            raise
+        finally:
+            await run_in_threadpool(session.close)
+    finally:
+        if gate is not None:
+            gate.release()
 
 
 SessionDep = Annotated[Session, Depends(get_db, scope="function")]
@@ -106,8 +121,13 @@ def _lookup(request: Request, cookie: str | None, raw_token: str | None) -> tupl
 
 
 def _touch_if_stale(request: Request, web_session: WebSession) -> None:
+    """Record activity (for the idle timeout) in a one-statement transaction of its own.
+
+    It bypasses the in-process writer queue on purpose: the request may already hold its place in that queue
+    (its own database work has not started yet, so SQLite's lock is free or briefly held by another writer).
+    """
     if accounts.session_needs_touch(web_session):
-        with transaction(app_state(request).writer) as session:
+        with Session(app_state(request).engine) as session, session.begin():
             accounts.touch_web_session(session, web_session.id)
 
 
