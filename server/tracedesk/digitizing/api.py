@@ -11,11 +11,16 @@ from starlette.concurrency import run_in_threadpool
 from tracedesk.accounts.permissions import Permission
 from tracedesk.archive.service import get_sheet
 from tracedesk.db import transaction
-from tracedesk.digitizing import calibrations, fits, series, traces
+from tracedesk.digitizing import calibrations, chart_specs, fits, series, traces
+from tracedesk.digitizing.detection import detect_calibration
 from tracedesk.digitizing.schemas import (
     AutoTraceRequest,
     CalibrationIn,
     CalibrationRead,
+    ChartSpecCreate,
+    ChartSpecRead,
+    ChartSpecUpdate,
+    DetectRequest,
     FitRead,
     FitRequest,
     TraceCreate,
@@ -64,6 +69,45 @@ def put_calibration(
     response = JSONResponse(body_out, status_code=200 if replaced else 201)
     set_etag(response, "calibration", sheet_id, row.version)
     return response
+
+
+def _detect(request: Request, sheet_id: int, body: DetectRequest, principal: Principal) -> dict[str, Any]:
+    """Detect without holding any lock; store (as an automatic calibration) only when asked and confident."""
+    state = app_state(request)
+    with transaction(state.reader) as session:
+        sheet = _sheet(session, sheet_id)
+        derived_key = sheet.derived_key
+        spec = chart_specs.spec_for_detection(session, body)
+    result = detect_calibration(load_sheet_image(state.store, derived_key), spec)
+    result["stored"] = False
+    if not body.accept or result["kind"] != "cartesian":
+        return result
+    if result["confidence"] < body.min_confidence:
+        result["warnings"] = [*result["warnings"], f"not stored: confidence below {body.min_confidence}"]
+        return result
+    with transaction(state.writer) as session:
+        sheet = _sheet(session, sheet_id)
+        existing = calibrations.calibration_of(session, sheet_id)
+        if existing is not None:
+            require_if_match(request, "calibration", sheet_id, existing.version)
+        reason = f"automatic registration from the printed grid (confidence {result['confidence']:.2f})"
+        row, _ = calibrations.put_calibration(
+            session, sheet, result["calibration"], actor=principal.actor, reason=reason, origin="automatic"
+        )
+        mark_work_started(session, sheet, actor=principal.actor)
+        result["stored"] = True
+        result["stored_calibration"] = calibrations.calibration_read(row).model_dump(mode="json")
+    return result
+
+
+@router.post("/sheets/{sheet_id}/calibration/detect", responses={412: {}, 428: {}})
+async def detect_calibration_route(
+    sheet_id: int, body: DetectRequest, principal: Digitizer, request: Request
+) -> dict[str, Any]:
+    """Find the printed grid of a chart spec on the sheet and propose a calibration (control points at grid
+    intersections, residuals, confidence). It is stored only with ``"accept": true`` (If-Match when one exists);
+    a sheet that is not the spec's chart, blank or mirrored is refused with the reason."""
+    return await run_in_threadpool(_detect, request, sheet_id, body, principal)
 
 
 @router.get("/sheets/{sheet_id}/calibration", response_model=CalibrationRead)
@@ -267,3 +311,34 @@ def period_summary(
         "unit": trace.unit,
         "periods": rows,
     }
+
+
+@router.post("/chart-specs", response_model=ChartSpecRead, status_code=201)
+def create_chart_spec(body: ChartSpecCreate, principal: Digitizer, db: SessionDep, response: Response) -> ChartSpecRead:
+    """Save a chart's printed geometry (for automatic registration) and/or a calibration template."""
+    spec = chart_specs.create_chart_spec(db, body, actor=principal.actor)
+    set_etag(response, "chart_spec", spec.id, spec.version)
+    return chart_specs.chart_spec_read(spec)
+
+
+@router.get("/chart-specs", response_model=list[ChartSpecRead])
+def list_chart_specs(_: Reader, db: SessionDep, collection_id: int | None = None) -> list[ChartSpecRead]:
+    return [chart_specs.chart_spec_read(spec) for spec in chart_specs.list_chart_specs(db, collection_id=collection_id)]
+
+
+@router.get("/chart-specs/{spec_id}", response_model=ChartSpecRead)
+def get_chart_spec(spec_id: int, _: Reader, db: SessionDep, response: Response) -> ChartSpecRead:
+    spec = chart_specs.get_chart_spec(db, spec_id)
+    set_etag(response, "chart_spec", spec.id, spec.version)
+    return chart_specs.chart_spec_read(spec)
+
+
+@router.patch("/chart-specs/{spec_id}", response_model=ChartSpecRead)
+def update_chart_spec(
+    spec_id: int, body: ChartSpecUpdate, principal: Digitizer, request: Request, db: SessionDep, response: Response
+) -> ChartSpecRead:
+    spec = chart_specs.get_chart_spec(db, spec_id)
+    require_if_match(request, "chart_spec", spec.id, spec.version)
+    chart_specs.update_chart_spec(db, spec, body, actor=principal.actor)
+    set_etag(response, "chart_spec", spec.id, spec.version)
+    return chart_specs.chart_spec_read(spec)

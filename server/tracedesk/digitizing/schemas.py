@@ -62,7 +62,7 @@ class CalibrationRead(BaseModel):
     transform: str | None
     residuals: list[PointResidual]
     rms_px: float | None
-    rms_units: list[float] | None
+    rms_units: list[float | None] | None  # None per axis when no point has a value on it (circular charts)
     loo_rms_px: float | None
     warnings: list[str]
     updated_at: datetime
@@ -160,3 +160,55 @@ class FitRead(BaseModel):
     domain: list[float]
     warnings: list[str]
     created_at: datetime
+
+
+class ChartSpecCreate(BaseModel):
+    """A chart spec: ``geometry`` is the printed grid for automatic registration (see science/grid_spec.py), and
+    ``calibration_template`` a calibration to start from (e.g. saved from a sheet); at least one of them."""
+
+    model_config = ConfigDict(extra="forbid")
+    name: str = Field(min_length=1, max_length=200)
+    collection_id: int | None = None
+    geometry: dict[str, Any] | None = None
+    calibration_template: dict[str, Any] | None = None
+    notes: str = Field(default="", max_length=10_000)
+
+    @model_validator(mode="after")
+    def _something_to_reuse(self) -> ChartSpecCreate:
+        if self.geometry is None and self.calibration_template is None:
+            raise ValueError("give geometry (the printed grid) or calibration_template, or both")
+        return self
+
+
+class ChartSpecUpdate(BaseModel):
+    model_config = ConfigDict(extra="forbid")
+    name: str | None = Field(default=None, min_length=1, max_length=200)
+    geometry: dict[str, Any] | None = None
+    calibration_template: dict[str, Any] | None = None
+    notes: str | None = Field(default=None, max_length=10_000)
+
+
+class ChartSpecRead(BaseModel):
+    id: int
+    name: str
+    kind: str
+    collection_id: int | None
+    geometry: dict[str, Any] | None
+    calibration_template: dict[str, Any] | None
+    notes: str
+    version: int
+    created_at: datetime
+
+
+class DetectRequest(BaseModel):
+    model_config = ConfigDict(extra="forbid")
+    chart_spec_id: int | None = None
+    spec: dict[str, Any] | None = Field(default=None, description="printed grid geometry (science/grid_spec.py)")
+    accept: bool = Field(default=False, description="store the proposed calibration when confident enough")
+    min_confidence: float = Field(default=0.5, ge=0, le=1)
+
+    @model_validator(mode="after")
+    def _one_source(self) -> DetectRequest:
+        if (self.chart_spec_id is None) == (self.spec is None):
+            raise ValueError("give exactly one of chart_spec_id or spec")
+        return self

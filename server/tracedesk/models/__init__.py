@@ -4,6 +4,7 @@ from tracedesk.models.api_token import ApiToken
 from tracedesk.models.audit_event import AuditChainHead, AuditEvent
 from tracedesk.models.base import Base
 from tracedesk.models.calibration import Calibration
+from tracedesk.models.chart_spec import ChartSpec
 from tracedesk.models.collection import Collection
 from tracedesk.models.collection_workflow import CollectionWorkflow
 from tracedesk.models.fit import Fit
@@ -25,6 +26,7 @@ __all__ = [
     "AuditEvent",
     "Base",
     "Calibration",
+    "ChartSpec",
     "Collection",
     "CollectionWorkflow",
     "Fit",

@@ -7,9 +7,9 @@ is the colour *line* from the paper colour P to the grid colour G, not one colou
 * ``t = (c - P) . (G - P) / |G - P|^2`` is how far along the line it lies (0 paper, 1 full grid ink);
 * ``d = |c - P - t (G - P)|`` (CIE76) is how far off the line it lies: pens, handwriting and stains of
   other colours lie far off it;
-* score = ``ramp(t) * max(0, 1 - d / tolerance)`` with ramp(t) = t on [0, 1], 1 up to t = 1.3 and
-  falling to 0 at t = 2.2 (much darker than the grid is not grid ink), zero for colours nearer an
-  expected pen colour than the grid colour.
+* score = ``ramp(t) * max(0, 1 - d / tolerance)`` with ramp(t) = t on [0, 1], 1 up to t = 1.25 and
+  falling to 0 at t = 1.6 (much darker or more saturated than the grid, such as a pen of the grid's
+  hue, is not grid ink), zero for colours nearer an expected pen colour than the grid colour.
 
 Whole sheets are scored through a table over sRGB quantised to 5 bits per channel (32768 entries), as
 in :mod:`tracedesk.science.pen_likelihood`. Sub-pixel work uses :func:`grid_coverage`: the same
@@ -44,8 +44,8 @@ FloatArray = NDArray[np.float64]
 ByteArray = NDArray[np.uint8]
 ProgressCallback = Callable[[float], None]
 
-RAMP_FLAT_END: Final = 1.3
-RAMP_ZERO: Final = 2.2
+RAMP_FLAT_END: Final = 1.25
+RAMP_ZERO: Final = 1.6
 # A grid colour this close to the paper (CIE76) cannot be told from it.
 MIN_GRID_CONTRAST: Final = 5.0
 CHUNK_LINES: Final = 64
@@ -96,7 +96,7 @@ def estimate_paper_rgb(image: ByteArray) -> FloatArray:
     """Paper colour (sRGB, 0-255): the per-channel median of a sparse sample of the sheet."""
     step = max(1, int(np.sqrt(image.shape[0] * image.shape[1] / 250_000)))
     sample = image[step // 2 :: step, step // 2 :: step].reshape(-1, 3)
-    return np.median(sample, axis=0).astype(np.float64)
+    return np.asarray(np.median(sample, axis=0), dtype=np.float64)
 
 
 def _ramp(t: FloatArray) -> FloatArray:
@@ -230,7 +230,7 @@ def _vertical_map(image: ByteArray, model: GridColourModel, block: int) -> Famil
     with ThreadPoolExecutor(_worker_count()) as pool:
         list(pool.map(run, range(0, rows.size, CHUNK_LINES)))
     u = np.arange(out.shape[1]) * block + block / 2.0
-    return FamilyMap("vertical", out, u, rows + 0.5)
+    return FamilyMap("vertical", out, u.astype(np.float64), (rows + 0.5).astype(np.float64))
 
 
 def _horizontal_map(image: ByteArray, model: GridColourModel, block: int) -> FamilyMap:
@@ -248,7 +248,7 @@ def _horizontal_map(image: ByteArray, model: GridColourModel, block: int) -> Fam
     with ThreadPoolExecutor(_worker_count()) as pool:
         list(pool.map(run, range(0, height, chunk)))
     v = np.arange(out.shape[0]) * block + block / 2.0
-    return FamilyMap("horizontal", out, cols + 0.5, v)
+    return FamilyMap("horizontal", out, (cols + 0.5).astype(np.float64), v.astype(np.float64))
 
 
 def family_score_maps(image: ByteArray, model: GridColourModel, *, block: int) -> tuple[FamilyMap, FamilyMap]:

@@ -15,6 +15,7 @@ Profile bins are ``bin_px`` wide; bin x (continuous, bin 0 centred at x = 0) lie
 
 from __future__ import annotations
 
+import itertools
 import math
 from dataclasses import dataclass
 from typing import Final
@@ -30,9 +31,12 @@ FloatArray = NDArray[np.float64]
 MAX_ANGLE_DEG: Final = 4.0
 COARSE_ANGLE_STEP_DEG: Final = 0.25
 FINE_ANGLE_STEP_DEG: Final = 0.05
-MAX_ROTATION_POINTS: Final = 80_000
+MAX_ROTATION_POINTS: Final = 40_000
 # Cells scoring below this (of 255) carry no line: they only add noise to the profiles.
 MIN_CELL_SCORE: Final = 40
+FAN_SLABS: Final = 3
+MIN_FAN_POINTS: Final = 500
+MIN_FAN_DEG: Final = 0.05
 
 
 @dataclass(frozen=True)
@@ -92,18 +96,20 @@ def _sharpness(points: MapPoints, angle_deg: float, bin_px: float) -> float:
     return float(counts @ counts) / (total * total) if total > 0 else 0.0
 
 
-def estimate_family_angle(points: MapPoints, *, bin_px: float, max_angle_deg: float = MAX_ANGLE_DEG) -> float:
+def estimate_family_angle(
+    points: MapPoints, *, bin_px: float, max_angle_deg: float = MAX_ANGLE_DEG, around_deg: float = 0.0
+) -> float:
     """Angle (degrees, clockwise on the screen) at which the family's profile is sharpest.
 
-    Coarse steps of 0.25 degrees over +-``max_angle_deg``, then 0.05 degree steps around the best, then
-    a parabola through the best three.
+    Coarse steps of 0.25 degrees over ``around_deg`` +-``max_angle_deg``, then 0.05 degree steps around
+    the best, then a parabola through the best three.
     """
     if points.u.size > MAX_ROTATION_POINTS:
         chosen = np.random.default_rng(0).choice(points.u.size, MAX_ROTATION_POINTS, replace=False)
         points = MapPoints(points.family, points.u[chosen], points.v[chosen], points.weight[chosen])
     if points.u.size < 10:
-        return 0.0
-    coarse = np.arange(-max_angle_deg, max_angle_deg + 1e-9, COARSE_ANGLE_STEP_DEG)
+        return around_deg
+    coarse = around_deg + np.arange(-max_angle_deg, max_angle_deg + 1e-9, COARSE_ANGLE_STEP_DEG)
     best = float(coarse[int(np.argmax([_sharpness(points, a, bin_px) for a in coarse]))])
     fine = best + np.arange(-5, 6) * FINE_ANGLE_STEP_DEG
     sharpness = np.array([_sharpness(points, a, bin_px) for a in fine])
@@ -152,19 +158,71 @@ class FamilyProfiles:
         return (np.asarray(s, dtype=np.float64) - self.origin) / self.bin_px - 0.5
 
 
-def family_profiles(
-    points: MapPoints, frame: FamilyFrame, *, bin_px: float, s_range: tuple[float, float], n_bands: int
-) -> FamilyProfiles:
-    """Profiles of the family over s in ``s_range`` (px), whole and in ``n_bands`` bands along t."""
+def _subset(points: MapPoints, keep: NDArray[np.bool_]) -> MapPoints:
+    return MapPoints(points.family, points.u[keep], points.v[keep], points.weight[keep])
+
+
+def estimate_fan(points: MapPoints, frame: FamilyFrame, *, bin_px: float) -> FloatArray:
+    """Coefficients (lowest first) of the lines' angle (degrees) as a straight line in s (px).
+
+    Converging lines (keystone) have angles that change across the family; the angle is found
+    separately in :data:`FAN_SLABS` slabs across the lines. Without enough points per slab the angle
+    is taken as constant.
+    """
+    s, _ = frame.to_frame(points.u, points.v)
+    edges = np.quantile(s, np.linspace(0.0, 1.0, FAN_SLABS + 1)) if s.size else np.zeros(FAN_SLABS + 1)
+    centres, angles = [], []
+    for low, high in itertools.pairwise(edges):
+        keep = (s >= low) & (s <= high)
+        if keep.sum() >= MIN_FAN_POINTS:
+            centres.append(float(np.mean(s[keep])))
+            subset = _subset(points, keep)
+            angles.append(estimate_family_angle(subset, bin_px=bin_px, around_deg=frame.angle_deg, max_angle_deg=1.0))
+    if len(centres) < FAN_SLABS or float(np.ptp(angles)) < MIN_FAN_DEG:
+        return np.array([frame.angle_deg, 0.0])
+    return np.asarray(np.polynomial.polynomial.polyfit(centres, angles, 1), dtype=np.float64)
+
+
+def fan_corrected_s(points: MapPoints, frame: FamilyFrame, fan: FloatArray) -> FloatArray:
+    """Normal coordinate (px) of each point moved along its own line to the middle of the family (in t).
+
+    With the angles of :func:`estimate_fan`, converging lines project as sharply as parallel ones.
+    """
     s, t = frame.to_frame(points.u, points.v)
-    length = int(math.ceil((s_range[1] - s_range[0]) / bin_px))
+    middle = 0.5 * (float(t.min()) + float(t.max())) if t.size else 0.0
+    turn = np.radians(np.polynomial.polynomial.polyval(s, fan) - frame.angle_deg)
+    # Turning a line by +delta (clockwise) about its middle moves its points by -(t - middle) tan(delta) in s.
+    return np.asarray(s + (t - middle) * np.tan(turn), dtype=np.float64)
+
+
+def family_profiles(
+    points: MapPoints,
+    frame: FamilyFrame,
+    *,
+    bin_px: float,
+    s_range: tuple[float, float],
+    n_bands: int,
+    whole_s: FloatArray | None = None,
+) -> FamilyProfiles:
+    """Profiles of the family over s in ``s_range`` (px), whole and in ``n_bands`` bands along t.
+
+    ``whole_s`` replaces the points' s for the whole profile (e.g. :func:`fan_corrected_s`).
+    """
+    s, t = frame.to_frame(points.u, points.v)
+    length = math.ceil((s_range[1] - s_range[0]) / bin_px)
     index = np.floor((s - s_range[0]) / bin_px).astype(np.intp)
     edges = np.linspace(float(t.min()), float(t.max()) + 1e-9, n_bands + 1)
     band = np.clip(np.searchsorted(edges, t, side="right") - 1, 0, n_bands - 1)
     inside = (index >= 0) & (index < length)
     flat = band[inside] * length + index[inside]
-    bands = np.bincount(flat, weights=points.weight[inside], minlength=n_bands * length).reshape(n_bands, length)
-    return FamilyProfiles(frame, bin_px, s_range[0], bands.sum(axis=0), bands, 0.5 * (edges[:-1] + edges[1:]))
+    counts = np.bincount(flat, weights=points.weight[inside], minlength=n_bands * length)
+    bands = np.asarray(counts, dtype=np.float64).reshape(n_bands, length)
+    whole = bands.sum(axis=0)
+    if whole_s is not None:
+        index = np.floor((whole_s - s_range[0]) / bin_px).astype(np.intp)
+        inside = (index >= 0) & (index < length)
+        whole = np.bincount(index[inside], weights=points.weight[inside], minlength=length).astype(np.float64)
+    return FamilyProfiles(frame, bin_px, s_range[0], whole, bands, 0.5 * (edges[:-1] + edges[1:]))
 
 
 def normalise_profile(profile: FloatArray, *, tophat_bins: int = 9) -> FloatArray:
@@ -195,15 +253,25 @@ def profile_peaks(profile: FloatArray, *, min_height: float) -> tuple[FloatArray
     return position, profile[index]
 
 
-def dominant_period(profile: FloatArray, *, min_bins: float = 2.0) -> float | None:
-    """Repeat distance (bins) of a normalised profile: the first strong autocorrelation peak, or None."""
+def spectral_periods(profile: FloatArray, *, count: int = 3, min_bins: float = 2.0) -> list[float]:
+    """Repeat distances (bins) of the strongest spectral peaks of a profile, strongest first.
+
+    The power spectrum (mean removed, zero-padded to four times the length for a finer frequency grid)
+    is searched for local maxima with periods from ``min_bins`` to a third of the profile; each peak's
+    frequency is refined by a parabola through its neighbours.
+    """
     centred = profile - profile.mean()
-    size = 1 << int(math.ceil(math.log2(2 * centred.size)))
-    spectrum = np.fft.rfft(centred, size)
-    correlation = np.fft.irfft(spectrum * np.conj(spectrum), size)[: centred.size // 2]
-    if correlation[0] <= 0:
-        return None
-    correlation = correlation / correlation[0]
-    index, _ = signal.find_peaks(correlation, height=0.2)
-    index = index[index >= min_bins]
-    return float(index[0]) if index.size else None
+    size = 1 << math.ceil(math.log2(4 * max(centred.size, 2)))
+    power = np.abs(np.fft.rfft(centred, size)) ** 2
+    index, _ = signal.find_peaks(power)
+    frequency = index / size
+    usable = (frequency >= 3.0 / max(centred.size, 1)) & (frequency <= 1.0 / min_bins)
+    index = index[usable]
+    strongest = index[np.argsort(power[index])[::-1][:count]]
+    periods = []
+    for k in strongest:
+        left, mid, right = power[k - 1], power[k], power[k + 1] if k + 1 < power.size else 0.0
+        curvature = left - 2.0 * mid + right
+        shift = 0.5 * (left - right) / curvature if curvature < 0 else 0.0
+        periods.append(float(size / (k + np.clip(shift, -0.5, 0.5))))
+    return periods

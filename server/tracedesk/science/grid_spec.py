@@ -251,7 +251,8 @@ class CircularChartSpec:
         """Printed radii (mm) of rings at linear chart coordinates ``chart`` of the value axis."""
         ends = self.value_axis.axis_scale().values_to_chart(np.array(self.value_axis.frame))
         fraction = (np.asarray(chart, dtype=np.float64) - ends[0]) / (ends[1] - ends[0])
-        return self.ring_radii_mm[0] + fraction * (self.ring_radii_mm[1] - self.ring_radii_mm[0])
+        radii = self.ring_radii_mm[0] + fraction * (self.ring_radii_mm[1] - self.ring_radii_mm[0])
+        return np.asarray(radii, dtype=np.float64)
 
     def to_dict(self) -> dict[str, Any]:
         """JSON shape ``circular`` of the module docstring."""

@@ -34,6 +34,9 @@ from typing import Any, Final, Protocol
 
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
+from scipy.sparse import coo_matrix
+from scipy.sparse.csgraph import connected_components
+from scipy.spatial import cKDTree
 
 from tracedesk.science.errors import ScienceInputError
 
@@ -383,7 +386,8 @@ def _fit_projective(pixels: FloatArray, chart: FloatArray) -> FloatArray:
     zeros, ones = np.zeros(n), np.ones(n)
     rows_x = np.stack([u, v, ones, zeros, zeros, zeros, -x * u, -x * v, -x], axis=1)
     rows_y = np.stack([zeros, zeros, zeros, u, v, ones, -y * u, -y * v, -y], axis=1)
-    _, singular, right = np.linalg.svd(np.vstack([rows_x, rows_y]))
+    # The reduced SVD is enough (and fast for many points) once there are at least 9 rows; 4 points give only 8.
+    _, singular, right = np.linalg.svd(np.vstack([rows_x, rows_y]), full_matrices=2 * n < 9)
     if singular[-2] <= 1e-10 * singular[0]:
         raise ScienceInputError("control_points: three of the points lie on one line; a projective fit is not unique")
     matrix = right[-1].reshape(3, 3)
@@ -440,12 +444,13 @@ def fit_transform(pixels: FloatArray, chart: FloatArray, *, name: str) -> PlaneT
 
 
 def count_distinct_pixels(pixels: FloatArray, *, tolerance_px: float = SAME_PIXEL_PX) -> int:
-    """Number of distinct spots among the pixels (points closer than ``tolerance_px`` count once)."""
-    representatives: list[FloatArray] = []
-    for point in pixels:
-        if not any(float(np.hypot(*(point - other))) < tolerance_px for other in representatives):
-            representatives.append(point)
-    return len(representatives)
+    """Number of distinct spots among the pixels (points chained closer than ``tolerance_px`` count once)."""
+    if len(pixels) < 2:
+        return len(pixels)
+    pairs = cKDTree(pixels).query_pairs(tolerance_px, output_type="ndarray")
+    graph = coo_matrix((np.ones(len(pairs)), (pairs[:, 0], pairs[:, 1])), shape=(len(pixels), len(pixels)))
+    count, _ = connected_components(graph, directed=False)
+    return int(count)
 
 
 def spread_ratio(points: FloatArray) -> float:
