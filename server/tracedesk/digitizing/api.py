@@ -11,7 +11,8 @@ from starlette.concurrency import run_in_threadpool
 from tracedesk.accounts.permissions import Permission
 from tracedesk.archive.service import get_sheet
 from tracedesk.db import transaction
-from tracedesk.digitizing import calibrations, chart_specs, fits, series, traces
+from tracedesk.digitizing import batch, calibrations, chart_specs, fits, series, traces
+from tracedesk.digitizing.batch_schemas import BatchRunCreate, BatchRunRead
 from tracedesk.digitizing.detection import detect_calibration
 from tracedesk.digitizing.schemas import (
     AutoTraceRequest,
@@ -40,6 +41,7 @@ from tracedesk.web.state import app_state
 router = APIRouter(prefix="/api/v1", tags=["digitizing"])
 Reader = Annotated[Principal, Depends(requires(Permission.READ))]
 Digitizer = Annotated[Principal, Depends(requires(Permission.DIGITIZE))]
+Manager = Annotated[Principal, Depends(requires(Permission.MANAGE_COLLECTIONS))]
 PERIODS = {"hour": 1.0, "day": 24.0, "week": 168.0}
 
 
@@ -342,3 +344,22 @@ def update_chart_spec(
     chart_specs.update_chart_spec(db, spec, body, actor=principal.actor)
     set_etag(response, "chart_spec", spec.id, spec.version)
     return chart_specs.chart_spec_read(spec)
+
+
+@router.post("/collections/{collection_id}/batch-runs", response_model=BatchRunRead, status_code=202)
+async def start_batch_run(
+    collection_id: int, body: BatchRunCreate, principal: Manager, request: Request, response: Response
+) -> BatchRunRead:
+    """Digitize a collection (or a selection) unattended: register each sheet from the chart spec's printed grid,
+    trace each pen, fit, score; sheets passing the thresholds are marked ready for review, the rest wait for a
+    person with the reason. Runs as a background job (progress at /api/v1/jobs/{job_id})."""
+    state = app_state(request)
+    run = await run_in_threadpool(batch.start_batch_run, state, collection_id, body, actor=principal.actor)
+    response.headers["Location"] = f"/api/v1/batch-runs/{run.id}"
+    with transaction(state.reader) as session:
+        return batch.batch_run_read(session, run.id)
+
+
+@router.get("/batch-runs/{run_id}", response_model=BatchRunRead)
+def get_batch_run(run_id: int, _: Reader, db: SessionDep) -> BatchRunRead:
+    return batch.batch_run_read(db, run_id)

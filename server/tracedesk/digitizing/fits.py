@@ -65,7 +65,9 @@ def _store_result(fit: Fit, result: FitResult) -> None:
     fit.result = json.dumps(body)
 
 
-def create_fit(session: Session, trace: Trace, family: str, options: dict[str, Any], *, actor: Actor) -> Fit:
+def create_fit(
+    session: Session, trace: Trace, family: str, options: dict[str, Any], *, actor: Actor, reason: str | None = None
+) -> Fit:
     result, calibration_version = compute_fit(session, trace, family, options)
     fit = Fit(
         trace_id=trace.id,
@@ -94,6 +96,7 @@ def create_fit(session: Session, trace: Trace, family: str, options: dict[str, A
         entity_id=fit.id,
         entity_version=fit.version,
         changes=created_fields(summary),
+        reason=reason,
     )
     return fit
 

@@ -135,7 +135,13 @@ def run_auto_trace(
 
 
 def store_auto_trace(
-    session: Session, sheet: Sheet, body: AutoTraceRequest, result: TraceResult, *, actor: Actor
+    session: Session,
+    sheet: Sheet,
+    body: AutoTraceRequest,
+    result: TraceResult,
+    *,
+    actor: Actor,
+    reason: str | None = None,
 ) -> Trace:
     vertices = result.vertices.tolist()
     trace = Trace(
@@ -168,6 +174,7 @@ def store_auto_trace(
         entity_id=trace.id,
         entity_version=trace.version,
         changes=created_fields(values),
+        reason=reason,
     )
     return trace
 

@@ -37,4 +37,5 @@ def known_kinds() -> list[str]:
 
 def _load_handlers() -> None:
     # Handlers live beside their features; importing them registers them (kept here to avoid import cycles).
+    from tracedesk.digitizing import batch  # noqa: F401
     from tracedesk.jobs import builtin_jobs  # noqa: F401

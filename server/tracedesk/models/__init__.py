@@ -3,6 +3,7 @@
 from tracedesk.models.api_token import ApiToken
 from tracedesk.models.audit_event import AuditChainHead, AuditEvent
 from tracedesk.models.base import Base
+from tracedesk.models.batch_run import BatchRun, BatchRunItem
 from tracedesk.models.calibration import Calibration
 from tracedesk.models.chart_spec import ChartSpec
 from tracedesk.models.collection import Collection
@@ -25,6 +26,8 @@ __all__ = [
     "AuditChainHead",
     "AuditEvent",
     "Base",
+    "BatchRun",
+    "BatchRunItem",
     "Calibration",
     "ChartSpec",
     "Collection",

@@ -1,0 +1,57 @@
+"""Request and response bodies of batch runs (issue 9)."""
+
+from __future__ import annotations
+
+from datetime import datetime
+from typing import Any
+
+from pydantic import BaseModel, ConfigDict, Field
+
+
+class BatchPen(BaseModel):
+    model_config = ConfigDict(extra="forbid")
+    name: str = Field(min_length=1, max_length=120)
+    pen_color: str = Field(pattern=r"^#[0-9a-fA-F]{6}$")
+    unit: str = Field(default="", max_length=60)
+    tolerance: float | None = Field(default=None, gt=0, le=100)
+
+
+class BatchThresholds(BaseModel):
+    """A sheet goes to review only when every figure is on the right side of its threshold."""
+
+    model_config = ConfigDict(extra="forbid")
+    min_confidence: float = Field(default=0.6, ge=0, le=1, description="registration confidence")
+    max_registration_rms_px: float = Field(default=1.0, gt=0, description="calibration RMS at the grid points")
+    min_coverage: float = Field(default=0.9, ge=0, le=1, description="fraction of the traced span with pen")
+    max_gaps: int = Field(default=5, ge=0, description="gaps per pen")
+    min_r_squared: float | None = Field(default=None, ge=0, le=1, description="fit quality, when a fit is asked")
+
+
+class BatchRunCreate(BaseModel):
+    model_config = ConfigDict(extra="forbid")
+    chart_spec_id: int
+    pens: list[BatchPen] = Field(min_length=1, max_length=8)
+    fit: dict[str, Any] | None = Field(default=None, description='e.g. {"family": "fourier", "degree": 2}')
+    thresholds: BatchThresholds = BatchThresholds()
+    sheet_ids: list[int] | None = Field(default=None, max_length=100_000, description="a selection; default all")
+
+
+class BatchItemRead(BaseModel):
+    sheet_id: int
+    status: str
+    score: dict[str, Any]
+    reason: str
+    finished_at: datetime | None
+
+
+class BatchRunRead(BaseModel):
+    id: int
+    collection_id: int
+    chart_spec_id: int
+    status: str
+    job_id: int | None
+    counts: dict[str, int]
+    settings: dict[str, Any]
+    items: list[BatchItemRead]
+    created_at: datetime
+    finished_at: datetime | None
