@@ -16,7 +16,7 @@ from numpy.typing import ArrayLike, NDArray
 
 from tracedesk.demo.compose import Ageing, InkLayer, compose_scan
 from tracedesk.demo.lettering import draw_handwriting, draw_text
-from tracedesk.demo.raster import fill_disc, new_canvas, stroke_polyline
+from tracedesk.demo.raster import fill_disc, new_canvas, stroke_polyline, stroke_polylines
 from tracedesk.demo.signals import Signal
 from tracedesk.demo.truth import PenTruth, RenderedSheet, SheetTruth
 from tracedesk.demo.warp import SheetWarp
@@ -60,13 +60,14 @@ class PenSpec:
 
 @dataclass(frozen=True)
 class Lettering:
-    """Printed text at a paper position (mm), size (mm), Pillow anchor and weight (0-1)."""
+    """Printed text at a paper position (mm), size (mm), Pillow anchor, weight (0-1) and turn (deg clockwise)."""
 
     text: str
     at_mm: tuple[float, float]
     size_mm: float
     anchor: str = "mm"
     strength: float = 1.0
+    angle_deg: float = 0.0
 
 
 @dataclass(frozen=True)
@@ -108,25 +109,28 @@ class _Frame:
         """Paper pixels of chart values."""
         left, top, right, bottom = self.design.box_mm
         fx, fy = self.design.x_axis.fraction(x), self.design.y_axis.fraction(y)
-        u = self.px(self.margin_mm + left + fx * (right - left))
-        v = self.px(self.margin_mm + bottom - fy * (bottom - top))
-        return np.column_stack([np.broadcast_to(u, np.broadcast(u, v).shape), np.broadcast_to(v, np.broadcast(u, v).shape)])
+        scale = self.dpi / MM_PER_INCH
+        u, v = np.broadcast_arrays(
+            (self.margin_mm + left + fx * (right - left)) * scale,
+            (self.margin_mm + bottom - fy * (bottom - top)) * scale,
+        )
+        return np.column_stack([u, v]).astype(np.float64)
 
 
 def _grid(frame: _Frame, warp: SheetWarp, minor: NDArray[np.float32], major: NDArray[np.float32]) -> None:
     d = frame.design
     steps = np.linspace(0.0, 1.0, 200)
+    if d.y_axis.scale == "log10":
+        along_y = d.y_axis.low * (d.y_axis.high / d.y_axis.low) ** steps
+    else:
+        along_y = d.y_axis.low + steps * (d.y_axis.high - d.y_axis.low)
+    along_x = d.x_axis.low + steps * (d.x_axis.high - d.x_axis.low)
     for values, layer, width in ((d.x_axis.minor, minor, 0.13), (d.x_axis.major, major, 0.25)):
-        for x in values:
-            y = d.y_axis.low * (d.y_axis.high / d.y_axis.low) ** steps if d.y_axis.scale == "log10" else (
-                d.y_axis.low + steps * (d.y_axis.high - d.y_axis.low))
-            stroke_polyline(layer, warp.paper_to_scan(frame.to_paper(np.full(steps.shape, x), y)),
-                            width_px=frame.px(width))
+        lines = [warp.paper_to_scan(frame.to_paper(np.full(steps.shape, x), along_y)) for x in values]
+        stroke_polylines(layer, lines, width_px=frame.px(width))
     for values, layer, width in ((d.y_axis.minor, minor, 0.13), (d.y_axis.major, major, 0.25)):
-        for y in values:
-            x = d.x_axis.low + steps * (d.x_axis.high - d.x_axis.low)
-            stroke_polyline(layer, warp.paper_to_scan(frame.to_paper(x, np.full(steps.shape, y))),
-                            width_px=frame.px(width))
+        lines = [warp.paper_to_scan(frame.to_paper(along_x, np.full(steps.shape, y))) for y in values]
+        stroke_polylines(layer, lines, width_px=frame.px(width))
 
 
 def _labels(frame: _Frame, text: NDArray[np.float32]) -> None:
@@ -142,8 +146,15 @@ def _labels(frame: _Frame, text: NDArray[np.float32]) -> None:
         draw_text(text, label, at_uv=(frame.px(left - 2.0 + frame.margin_mm), v), size_px=size, anchor="rm")
         draw_text(text, label, at_uv=(frame.px(right + 2.0 + frame.margin_mm), v), size_px=size, anchor="lm")
     for item in d.lettering:
-        draw_text(text, item.text, at_uv=frame.at(item.at_mm), size_px=frame.px(item.size_mm), anchor=item.anchor,
-                  strength=item.strength)
+        draw_text(
+            text,
+            item.text,
+            at_uv=frame.at(item.at_mm),
+            size_px=frame.px(item.size_mm),
+            anchor=item.anchor,
+            strength=item.strength,
+            angle_deg=item.angle_deg,
+        )
 
 
 def _paper_mask(frame: _Frame) -> NDArray[np.float32]:
@@ -163,8 +174,13 @@ def _paper_mask(frame: _Frame) -> NDArray[np.float32]:
     return mask
 
 
-def _pens(frame: _Frame, warp: SheetWarp, signals: tuple[Signal, ...], spans: tuple[tuple[float, float], ...],
-          shape: tuple[int, int]) -> tuple[list[PenTruth], list[InkLayer]]:
+def _pens(
+    frame: _Frame,
+    warp: SheetWarp,
+    signals: tuple[Signal, ...],
+    spans: tuple[tuple[float, float], ...],
+    shape: tuple[int, int],
+) -> tuple[list[PenTruth], list[InkLayer]]:
     truths, inks = [], []
     for spec, signal, span in zip(frame.design.pens, signals, spans, strict=True):
         x = np.linspace(span[0], span[1], max(4000, round(frame.px(300.0) * 4)))
@@ -182,8 +198,13 @@ def _calibration(frame: _Frame, warp: SheetWarp) -> dict[str, Any]:
         {"pixel": [float(c) for c in warp.paper_to_scan(frame.to_paper(x, y))[0]], "value": [x, y]}
         for x, y in d.control_values
     ]
-    return {"kind": "cartesian", "x_axis": d.x_axis.calibration_axis(), "y_axis": d.y_axis.calibration_axis(),
-            "control_points": points, "transform": "auto"}
+    return {
+        "kind": "cartesian",
+        "x_axis": d.x_axis.calibration_axis(),
+        "y_axis": d.y_axis.calibration_axis(),
+        "control_points": points,
+        "transform": "auto",
+    }
 
 
 def render_cartesian_chart(
@@ -205,8 +226,9 @@ def render_cartesian_chart(
     _grid(frame, warp, minor, major)
     _labels(frame, text)
     if design.note:
-        draw_handwriting(note, design.note, at_uv=frame.at(design.note_at_mm), size_px=frame.px(4.0), rng=rng,
-                         angle_deg=-1.5)
+        draw_handwriting(
+            note, design.note, at_uv=frame.at(design.note_at_mm), size_px=frame.px(4.0), rng=rng, angle_deg=-1.5
+        )
     pens, pen_inks = _pens(frame, warp, signals, spans, shape)
     inks = [
         InkLayer(minor, design.grid_colour, opacity=0.5),
@@ -218,24 +240,45 @@ def render_cartesian_chart(
     paper = np.clip(warp.resample_layer(_paper_mask(frame), shape), 0.0, 1.0)
     image = compose_scan(paper=paper, inks=inks, ageing=ageing, dpi=dpi, rng=rng)
     calibration = _calibration(frame, warp)
-    corners = warp.paper_to_scan(frame.to_paper(
-        np.array([design.x_axis.low, design.x_axis.high, design.x_axis.high, design.x_axis.low]),
-        np.array([design.y_axis.high, design.y_axis.high, design.y_axis.low, design.y_axis.low])))
-    geometry = {"plot_corners_px": corners.tolist(), "rotation_deg": warp.rotation_deg,
-                "shrink": [warp.shrink_u, warp.shrink_v], "bow": warp.bow}
+    corners = warp.paper_to_scan(
+        frame.to_paper(
+            np.array([design.x_axis.low, design.x_axis.high, design.x_axis.high, design.x_axis.low]),
+            np.array([design.y_axis.high, design.y_axis.high, design.y_axis.low, design.y_axis.low]),
+        )
+    )
+    geometry = {
+        "plot_corners_px": corners.tolist(),
+        "rotation_deg": warp.rotation_deg,
+        "shrink": [warp.shrink_u, warp.shrink_v],
+        "bow": warp.bow,
+    }
     full_scale = design.y_axis.high - design.y_axis.low
     truth = SheetTruth(design.kind, shape[1], shape[0], dpi, calibration, tuple(pens), geometry, full_scale)
     return RenderedSheet(image, truth)
 
 
-def cartesian_warp(design: CartesianDesign, *, dpi: float, rotation_deg: float, shrink: tuple[float, float],
-                   offset_mm: tuple[float, float], bow: float, margin_mm: float = 3.0) -> SheetWarp:
+def cartesian_warp(
+    design: CartesianDesign,
+    *,
+    dpi: float,
+    rotation_deg: float,
+    shrink: tuple[float, float],
+    offset_mm: tuple[float, float],
+    bow: float,
+    margin_mm: float = 3.0,
+) -> SheetWarp:
     """A placement of the sheet on the scanner: turned, shrunk unevenly, shifted, bowed a little."""
     frame = _Frame(design, dpi, margin_mm)
     rows, cols = frame.shape
-    return SheetWarp(rotation_deg=rotation_deg, shrink_u=shrink[0], shrink_v=shrink[1],
-                     offset_px=(frame.px(offset_mm[0]), frame.px(offset_mm[1])), pivot_px=(cols / 2, rows / 2),
-                     bow=bow, span_px=float(cols))
+    return SheetWarp(
+        rotation_deg=rotation_deg,
+        shrink_u=shrink[0],
+        shrink_v=shrink[1],
+        offset_px=(frame.px(offset_mm[0]), frame.px(offset_mm[1])),
+        pivot_px=(cols / 2, rows / 2),
+        bow=bow,
+        span_px=float(cols),
+    )
 
 
 def log_decade_lines(low: float, high: float) -> tuple[tuple[float, ...], tuple[float, ...]]:

@@ -18,7 +18,7 @@ from numpy.typing import ArrayLike, NDArray
 
 from tracedesk.demo.compose import Ageing, InkLayer, compose_scan
 from tracedesk.demo.lettering import draw_handwriting, draw_text
-from tracedesk.demo.raster import fill_disc, new_canvas, stroke_polyline
+from tracedesk.demo.raster import fill_disc, new_canvas, stroke_polyline, stroke_polylines
 from tracedesk.demo.signals import Signal
 from tracedesk.demo.truth import PenTruth, RenderedSheet, SheetTruth
 from tracedesk.demo.warp import SheetWarp
@@ -109,22 +109,25 @@ def _rings(frame: _Frame, warp: SheetWarp, minor: NDArray[np.float32], major: ND
     d = frame.design
     count = round((d.value_max - d.value_min) / d.minor_step)
     per_major = round(d.major_step / d.minor_step)
+    rings: dict[bool, list[FloatArray]] = {True: [], False: []}
     for index in range(count + 1):
         radius = float(frame.radius_of(d.value_min + index * d.minor_step))
         angles = np.linspace(0.0, 2.0 * math.pi, max(64, int(radius)), endpoint=True)
-        ring = warp.paper_to_scan(frame.point(np.full(angles.shape, radius), angles))
-        is_major = index % per_major == 0
-        stroke_polyline(major if is_major else minor, ring, width_px=frame.px(0.3 if is_major else 0.15))
+        rings[index % per_major == 0].append(warp.paper_to_scan(frame.point(np.full(angles.shape, radius), angles)))
+    stroke_polylines(major, rings[True], width_px=frame.px(0.3))
+    stroke_polylines(minor, rings[False], width_px=frame.px(0.15))
 
 
 def _time_arcs(frame: _Frame, warp: SheetWarp, minor: NDArray[np.float32], major: NDArray[np.float32]) -> None:
+    """Arcs every 2 h (thin), 6 h (medium) and 24 h (heavy)."""
     d = frame.design
     radius = np.linspace(frame.px(d.radius_min_mm), frame.px(d.radius_max_mm), 400)
+    arcs: dict[float, list[FloatArray]] = {0.35: [], 0.22: [], 0.12: []}
     for hour in range(0, round(d.period_hours), 2):
-        arc = warp.paper_to_scan(frame.point(radius, frame.angle_of(radius, hour)))
-        day_line = hour % 24 == 0
-        width = 0.35 if day_line else (0.22 if hour % 6 == 0 else 0.12)
-        stroke_polyline(major if hour % 6 == 0 else minor, arc, width_px=frame.px(width))
+        width = 0.35 if hour % 24 == 0 else (0.22 if hour % 6 == 0 else 0.12)
+        arcs[width].append(warp.paper_to_scan(frame.point(radius, frame.angle_of(radius, hour))))
+    for width, lines in arcs.items():
+        stroke_polylines(minor if width == 0.12 else major, lines, width_px=frame.px(width))
 
 
 def _labels(frame: _Frame, text: NDArray[np.float32]) -> None:
@@ -178,8 +181,10 @@ def _truth_calibration(frame: _Frame, warp: SheetWarp) -> dict[str, Any]:
     scale = warp.mean_scale
     r_max = float(frame.radius_of(d.value_max))
     pivot_angle = math.radians(d.pivot_angle_deg)
-    pivot = (frame.centre[0] + frame.px(d.pivot_distance_mm) * math.cos(pivot_angle),
-             frame.centre[1] + frame.px(d.pivot_distance_mm) * math.sin(pivot_angle))
+    pivot = (
+        frame.centre[0] + frame.px(d.pivot_distance_mm) * math.cos(pivot_angle),
+        frame.centre[1] + frame.px(d.pivot_distance_mm) * math.sin(pivot_angle),
+    )
     zero = frame.point(np.array([r_max]), frame.angle_of(np.array([r_max]), 0.0))
     check = [(hours, value) for hours in (24.0, 78.0, 132.0) for value in (d.value_min + 2 * d.major_step, d.value_max)]
     check_radius = frame.radius_of([value for _, value in check])
@@ -209,13 +214,25 @@ def _truth_calibration(frame: _Frame, warp: SheetWarp) -> dict[str, Any]:
     }
 
 
-def circular_warp(design: CircularDesign, *, dpi: float, rotation_deg: float, shrink: float,
-                  offset_mm: tuple[float, float], margin_mm: float = 2.5) -> SheetWarp:
+def circular_warp(
+    design: CircularDesign,
+    *,
+    dpi: float,
+    rotation_deg: float,
+    shrink: float,
+    offset_mm: tuple[float, float],
+    margin_mm: float = 2.5,
+) -> SheetWarp:
     """A similarity placement of the chart on the scanner (circles stay circles)."""
     frame = _frame(design, dpi, margin_mm)
     mm = dpi / MM_PER_INCH
-    return SheetWarp(rotation_deg=rotation_deg, shrink_u=shrink, shrink_v=shrink,
-                     offset_px=(offset_mm[0] * mm, offset_mm[1] * mm), pivot_px=frame.centre)
+    return SheetWarp(
+        rotation_deg=rotation_deg,
+        shrink_u=shrink,
+        shrink_v=shrink,
+        offset_px=(offset_mm[0] * mm, offset_mm[1] * mm),
+        pivot_px=frame.centre,
+    )
 
 
 def render_circular_chart(
@@ -261,6 +278,7 @@ def render_circular_chart(
         "scale": warp.mean_scale,
     }
     pens = (PenTruth(design.pen_name, design.unit, design.pen_colour, signal, hours, pen_pixels, pen_width),)
-    truth = SheetTruth("circular", frame.size, frame.size, dpi, calibration, pens, geometry,
-                       design.value_max - design.value_min)
+    truth = SheetTruth(
+        "circular", frame.size, frame.size, dpi, calibration, pens, geometry, design.value_max - design.value_min
+    )
     return RenderedSheet(image, truth)

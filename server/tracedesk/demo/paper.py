@@ -34,12 +34,10 @@ def smooth_noise(shape: tuple[int, int], *, rng: np.random.Generator, scale_px: 
     coarse = ndimage.gaussian_filter(coarse, sigma=max(scale_px / step / 2.0, 0.5))
     zoomed = ndimage.zoom(coarse, step, order=1)[: shape[0], : shape[1]]
     spread = float(zoomed.std()) or 1.0
-    return ((zoomed - zoomed.mean()) / spread).astype(np.float32)
+    return np.asarray((zoomed - zoomed.mean()) / spread, dtype=np.float32)
 
 
-def paper_background(
-    shape: tuple[int, int], *, tint: Colour, rng: np.random.Generator, mottle: float = 0.02
-) -> Image:
+def paper_background(shape: tuple[int, int], *, tint: Colour, rng: np.random.Generator, mottle: float = 0.02) -> Image:
     """Paper of colour ``tint`` with large, faint mottling and a fine fibre grain."""
     large = smooth_noise(shape, rng=rng, scale_px=max(shape) / 8)
     grain = rng.standard_normal(shape).astype(np.float32) * 0.006
@@ -56,7 +54,9 @@ def apply_ink(image: Image, coverage: Layer, colour: Colour, *, opacity: float |
 
 def ink_flow(shape: tuple[int, int], *, rng: np.random.Generator, variation: float = 0.08) -> Layer:
     """Opacity of a pen along its line: mostly full, fading a little where the ink ran thin."""
-    return np.clip(0.95 + variation * smooth_noise(shape, rng=rng, scale_px=60.0), 0.6, 1.0)
+    return np.asarray(
+        np.clip(0.95 + variation * smooth_noise(shape, rng=rng, scale_px=60.0), 0.6, 1.0), dtype=np.float32
+    )
 
 
 def add_stain(
@@ -115,4 +115,4 @@ def scanner_finish(image: Image, *, rng: np.random.Generator, blur_px: float, no
     """The scanner's optics and sensor: a slight blur and per-pixel noise, then 8-bit values."""
     blurred = ndimage.gaussian_filter(image, sigma=(blur_px, blur_px, 0.0)) if blur_px > 0 else image
     noisy = blurred + rng.normal(0.0, noise, size=image.shape).astype(np.float32)
-    return np.clip(np.rint(noisy * 255.0), 0, 255).astype(np.uint8)
+    return np.asarray(np.clip(np.rint(noisy * 255.0), 0, 255), dtype=np.uint8)

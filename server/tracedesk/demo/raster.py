@@ -10,6 +10,7 @@ That is what makes the demo's known truth honest.
 from __future__ import annotations
 
 import math
+from collections.abc import Sequence
 
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
@@ -20,7 +21,7 @@ Coverage = NDArray[np.float32]
 # Polylines are split into pieces no longer than this (px) so each piece touches a small pixel window.
 MAX_PIECE_PX = 2.0
 # Pieces evaluated per numpy batch (bounds the temporary arrays to a few tens of MB).
-PIECES_PER_BATCH = 20_000
+PIECES_PER_BATCH = 4_000
 
 
 def densify_polyline(points: ArrayLike, *, max_step_px: float = MAX_PIECE_PX) -> FloatArray:
@@ -44,7 +45,7 @@ def _segment_distances(a: FloatArray, b: FloatArray, centres: FloatArray) -> Flo
     offset = centres - a[:, None, :]
     along = np.clip(np.einsum("nkd,nd->nk", offset, direction) / length_sq[:, None], 0.0, 1.0)
     nearest = a[:, None, :] + along[..., None] * direction[:, None, :]
-    return np.hypot(*(centres - nearest).transpose(2, 0, 1))
+    return np.asarray(np.hypot(*(centres - nearest).transpose(2, 0, 1)), dtype=np.float64)
 
 
 def stroke_polyline(canvas: Coverage, points: ArrayLike, *, width_px: float) -> None:
@@ -52,14 +53,24 @@ def stroke_polyline(canvas: Coverage, points: ArrayLike, *, width_px: float) -> 
 
     Points that are NaN split the polyline (no segment is drawn to or from them).
     """
-    uv = np.asarray(points, dtype=np.float64).reshape(-1, 2)
-    for piece in _finite_runs(uv):
-        dense = densify_polyline(piece)
-        if len(dense) == 1:
-            dense = np.vstack([dense, dense])
-        for first in range(0, len(dense) - 1, PIECES_PER_BATCH):
-            chunk = dense[first : first + PIECES_PER_BATCH + 1]
-            _stroke_segments(canvas, chunk[:-1], chunk[1:], width_px)
+    stroke_polylines(canvas, [points], width_px=width_px)
+
+
+def stroke_polylines(canvas: Coverage, lines: Sequence[ArrayLike], *, width_px: float) -> None:
+    """Draw several polylines of one width at once (one pass over all their segments)."""
+    starts, ends = [], []
+    for line in lines:
+        for piece in _finite_runs(np.asarray(line, dtype=np.float64).reshape(-1, 2)):
+            dense = densify_polyline(piece)
+            if len(dense) == 1:
+                dense = np.vstack([dense, dense])
+            starts.append(dense[:-1])
+            ends.append(dense[1:])
+    if not starts:
+        return
+    a, b = np.vstack(starts), np.vstack(ends)
+    for first in range(0, len(a), PIECES_PER_BATCH):
+        _stroke_segments(canvas, a[first : first + PIECES_PER_BATCH], b[first : first + PIECES_PER_BATCH], width_px)
 
 
 def _finite_runs(uv: FloatArray) -> list[FloatArray]:
@@ -81,7 +92,7 @@ def _stroke_segments(canvas: Coverage, a: FloatArray, b: FloatArray, width_px: f
     corner = np.floor(np.minimum(a, b) - reach - 0.5).astype(np.intp)
     offsets = np.stack(np.meshgrid(np.arange(span), np.arange(span), indexing="xy"), axis=-1).reshape(-1, 2)
     pixels = corner[:, None, :] + offsets[None, :, :]
-    distance = _segment_distances(a, b, pixels + 0.5)
+    distance = _segment_distances(a, b, pixels.astype(np.float64) + 0.5)
     coverage = np.clip(reach - distance, 0.0, 1.0).astype(np.float32)
     height, width = canvas.shape
     inside = (coverage > 0) & (pixels[..., 0] >= 0) & (pixels[..., 0] < width)

@@ -74,7 +74,10 @@ class DemoSheet:
     """One demo sheet, how far the demo digitizes it, and where it stands in the review workflow.
 
     ``stage`` is one of "uploaded", "calibrated", "traced", "fitted"; ``trace_mode`` "auto" or "manual";
-    ``workflow`` the task state the demo aims for (used when the workflow feature is present).
+    ``workflow`` the task state the demo takes the sheet's task to ("open", "in_progress", "submitted",
+    "returned", "approved", "withdrawn"), with ``workflow_reason`` for a return or withdrawal and
+    ``review_comment`` pinned to the sheet at the pen's point at ``comment_at`` (x units). ``full_scale`` is the
+    value axis' span in chart units: value units, or decades when ``log_scale``.
     """
 
     key: str
@@ -92,8 +95,15 @@ class DemoSheet:
     trace_mode: str = "auto"
     digitizer: str = "tech_a"
     fits: tuple[FitPlan, ...] = ()
-    workflow: str = "unassigned"
+    workflow: str = "open"
+    assigned: bool = True
+    workflow_reason: str = ""
     review_comment: str = ""
+    comment_at: float = 0.0
+    manual_step: float = 1.5
+    manual_skip: tuple[float, float] | None = None
+    full_scale: float = 1.0
+    log_scale: bool = False
 
     def pen(self, name: str) -> DemoPen:
         """The pen called ``name``."""
@@ -139,7 +149,7 @@ COLLECTIONS = (
 
 def _level_signal(week: int) -> Signal:
     rng = np.random.default_rng(1000 + week)
-    bumps = (Bump(-1.3, 90.0, 4.0),) if week == 1 else ()
+    bumps = (Bump(-1.3, 82.0, 3.0),) if week == 1 else ()
     return Signal(
         offset=round(7.0 + rng.uniform(-0.6, 0.6), 3),
         slope=round(rng.uniform(-0.006, 0.006), 5),
@@ -166,10 +176,16 @@ def _level_sheet(week: int, **plan: Any) -> DemoSheet:
     stains = (Stain((0.72, 0.28), 28.0, 0.3),) if week == 1 else (Stain((0.2, 0.8), 22.0, 0.18),)
 
     def render(dpi: float) -> RenderedSheet:
-        warp = circular_warp(design, dpi=dpi, rotation_deg=(0.6, -1.1, 0.3)[week], shrink=(0.998, 0.997, 0.999)[week],
-                             offset_mm=((0.8, -0.5), (-0.6, 0.4), (0.3, 0.9))[week])
-        return render_circular_chart(design, signal, span_hours=span, warp=warp, ageing=Ageing(stains=stains),
-                                     dpi=dpi, seed=2000 + week)
+        warp = circular_warp(
+            design,
+            dpi=dpi,
+            rotation_deg=(0.6, -1.1, 0.3)[week],
+            shrink=(0.998, 0.997, 0.999)[week],
+            offset_mm=((0.8, -0.5), (-0.6, 0.4), (0.3, 0.9))[week],
+        )
+        return render_circular_chart(
+            design, signal, span_hours=span, warp=warp, ageing=Ageing(stains=stains), dpi=dpi, seed=2000 + week
+        )
 
     return DemoSheet(
         key=f"level-w{10 + week}",
@@ -183,6 +199,7 @@ def _level_sheet(week: int, **plan: Any) -> DemoSheet:
         pens=(DemoPen("Reservoir level", "m", design.pen_colour, signal, span),),
         render=render,
         x_unit="h",
+        full_scale=LEVEL_DESIGN.value_max - LEVEL_DESIGN.value_min,
         **plan,
     )
 
@@ -211,17 +228,43 @@ def _pressure_design(day: int) -> CartesianDesign:
         kind="strip",
         paper_mm=(280.0, 230.0),
         box_mm=(22.0, 30.0, 262.0, 210.0),
-        x_axis=ChartAxis(0.0, 24.0, "time", hours, tuple(h / 4 for h in range(97) if h % 4),
-                         tuple((h, f"{int(h):02d}") for h in hours[::2])),
-        y_axis=ChartAxis(0.0, 10.0, "linear", bars, tuple(b / 5 for b in range(51) if b % 5),
-                         tuple((b, f"{int(b)}") for b in bars), unit="bar"),
+        x_axis=ChartAxis(
+            0.0,
+            24.0,
+            "time",
+            hours,
+            tuple(h / 4 for h in range(97) if h % 4),
+            tuple((h, f"{int(h):02d}") for h in hours[::2]),
+        ),
+        y_axis=ChartAxis(
+            0.0,
+            10.0,
+            "linear",
+            bars,
+            tuple(b / 5 for b in range(51) if b % 5),
+            tuple((b, f"{int(b)}") for b in bars),
+            unit="bar",
+        ),
         pens=(PenSpec("Discharge pressure", "bar", "#1f4e9c"), PenSpec("District pressure", "bar", "#b3262b")),
-        control_values=((0.0, 0.0), (24.0, 0.0), (24.0, 10.0), (0.0, 10.0), (12.0, 5.0), (6.0, 2.0), (18.0, 8.0),
-                        (6.0, 8.0), (18.0, 2.0)),
+        control_values=(
+            (0.0, 0.0),
+            (24.0, 0.0),
+            (24.0, 10.0),
+            (0.0, 10.0),
+            (12.0, 5.0),
+            (6.0, 2.0),
+            (18.0, 8.0),
+            (6.0, 8.0),
+            (18.0, 2.0),
+        ),
         lettering=(
             Lettering("BRACKENFOLD VALLEY WATER AUTHORITY  -  QUARRY LANE PUMPING STATION", (22.0, 14.0), 3.4, "lm"),
-            Lettering("PRESSURE  0-10 bar   CHART SPEED 10 mm/h   PEN 1 BLUE: DISCHARGE   PEN 2 RED: DISTRICT",
-                      (22.0, 19.5), 2.6, "lm"),
+            Lettering(
+                "PRESSURE  0-10 bar   CHART SPEED 10 mm/h   PEN 1 BLUE: DISCHARGE   PEN 2 RED: DISTRICT",
+                (22.0, 19.5),
+                2.6,
+                "lm",
+            ),
             Lettering("CHART No. QL-2410", (262.0, 14.0), 2.8, "rm"),
         ),
         note=f"{14 + day}/7/86   pumps 2 + 3   - R.",
@@ -237,11 +280,23 @@ def _pressure_sheet(day: int, **plan: Any) -> DemoSheet:
     stains = (Stain((0.78, 0.62), 24.0, 0.28),) if day == 0 else ()
 
     def render(dpi: float) -> RenderedSheet:
-        warp = cartesian_warp(design, dpi=dpi, rotation_deg=(0.45, -0.7, 0.9)[day],
-                              shrink=((0.996, 0.991), (0.997, 0.993), (0.995, 0.990))[day],
-                              offset_mm=((0.4, 0.6), (-0.5, 0.2), (0.3, -0.4))[day], bow=(0.002, 0.003, 0.0015)[day])
-        return render_cartesian_chart(design, (discharge, district), spans=spans, warp=warp,
-                                      ageing=Ageing(stains=stains, tint=(0.95, 0.93, 0.86)), dpi=dpi, seed=4000 + day)
+        warp = cartesian_warp(
+            design,
+            dpi=dpi,
+            rotation_deg=(0.45, -0.7, 0.9)[day],
+            shrink=((0.996, 0.991), (0.997, 0.993), (0.995, 0.990))[day],
+            offset_mm=((0.4, 0.6), (-0.5, 0.2), (0.3, -0.4))[day],
+            bow=(0.002, 0.003, 0.0015)[day],
+        )
+        return render_cartesian_chart(
+            design,
+            (discharge, district),
+            spans=spans,
+            warp=warp,
+            ageing=Ageing(stains=stains, tint=(0.95, 0.93, 0.86)),
+            dpi=dpi,
+            seed=4000 + day,
+        )
 
     return DemoSheet(
         key=f"pressure-d{14 + day}",
@@ -252,10 +307,13 @@ def _pressure_sheet(day: int, **plan: Any) -> DemoSheet:
         recorded_to=f"1986-07-{15 + day}T00:00+01:00",
         station="Quarry Lane pumping station, main header",
         tags=("demo", "strip chart", "pressure"),
-        pens=(DemoPen("Discharge pressure", "bar", "#1f4e9c", discharge, spans[0]),
-              DemoPen("District pressure", "bar", "#b3262b", district, spans[1])),
+        pens=(
+            DemoPen("Discharge pressure", "bar", "#1f4e9c", discharge, spans[0]),
+            DemoPen("District pressure", "bar", "#b3262b", district, spans[1]),
+        ),
         render=render,
         x_unit="h",
+        full_scale=10.0,
         **plan,
     )
 
@@ -267,23 +325,37 @@ def _decay_design(run: int) -> CartesianDesign:
         kind="plot",
         paper_mm=(297.0, 210.0),
         box_mm=(32.0, 28.0, 272.0, 178.0),
-        x_axis=ChartAxis(0.0, 60.0, "linear", minutes, tuple(float(m) for m in range(0, 61, 2) if m % 10),
-                         tuple((m, f"{int(m)}") for m in minutes), unit="min"),
-        y_axis=ChartAxis(1.0, 1000.0, "log10", major, minor,
-                         tuple((v, f"{int(v)}") for v in major), unit="kPa"),
+        x_axis=ChartAxis(
+            0.0,
+            60.0,
+            "linear",
+            minutes,
+            tuple(float(m) for m in range(0, 61, 2) if m % 10),
+            tuple((m, f"{int(m)}") for m in minutes),
+            unit="min",
+        ),
+        y_axis=ChartAxis(1.0, 1000.0, "log10", major, minor, tuple((v, f"{int(v)}") for v in major), unit="kPa"),
         pens=(PenSpec("Vessel pressure", "kPa", "#232323", 0.3),),
-        control_values=((0.0, 1.0), (60.0, 1.0), (60.0, 1000.0), (0.0, 1000.0), (30.0, 10.0), (30.0, 100.0),
-                        (10.0, 1000.0), (50.0, 1.0)),
+        control_values=(
+            (0.0, 1.0),
+            (60.0, 1.0),
+            (60.0, 1000.0),
+            (0.0, 1000.0),
+            (30.0, 10.0),
+            (30.0, 100.0),
+            (10.0, 1000.0),
+            (50.0, 1.0),
+        ),
         lettering=(
             Lettering("FENWOLD MATERIALS TEST LABORATORY", (32.0, 12.0), 3.8, "lm"),
             Lettering(f"PRESSURE DECAY TEST  -  VESSEL 4  -  SEAL SAMPLE F-{17 + run}", (32.0, 18.5), 2.8, "lm"),
             Lettering("TIME, min", (152.0, 190.0), 3.0),
-            Lettering("PRESSURE, kPa (abs)", (10.0, 103.0), 3.0, "mm"),
+            Lettering("PRESSURE, kPa (abs)", (12.0, 103.0), 3.0, "mm", angle_deg=-90.0),
             Lettering("3 CYCLES x 60 DIVISIONS", (272.0, 12.0), 2.4, "rm"),
         ),
         grid_colour="#4f7fb4",
         note=f"Run {3 + run}   seal F-{17 + run}   20 C   ok  - N.P.",
-        note_at_mm=(150.0, 60.0),
+        note_at_mm=(205.0, 196.0),
     )
 
 
@@ -301,11 +373,23 @@ def _decay_sheet(run: int, **plan: Any) -> DemoSheet:
     span = (0.4, 58.5)
 
     def render(dpi: float) -> RenderedSheet:
-        warp = cartesian_warp(design, dpi=dpi, rotation_deg=(-0.4, 0.55)[run], shrink=((0.998, 0.996), (0.997, 0.995))[run],
-                              offset_mm=((0.5, 0.3), (-0.3, 0.6))[run], bow=0.0)
-        return render_cartesian_chart(design, (signal,), spans=(span,), warp=warp,
-                                      ageing=Ageing(tint=(0.965, 0.955, 0.915), foxing_spots=5), dpi=dpi,
-                                      seed=6000 + run)
+        warp = cartesian_warp(
+            design,
+            dpi=dpi,
+            rotation_deg=(-0.4, 0.55)[run],
+            shrink=((0.998, 0.996), (0.997, 0.995))[run],
+            offset_mm=((0.5, 0.3), (-0.3, 0.6))[run],
+            bow=0.0,
+        )
+        return render_cartesian_chart(
+            design,
+            (signal,),
+            spans=(span,),
+            warp=warp,
+            ageing=Ageing(tint=(0.965, 0.955, 0.915), foxing_spots=5),
+            dpi=dpi,
+            seed=6000 + run,
+        )
 
     return DemoSheet(
         key=f"decay-run{3 + run}",
@@ -319,33 +403,66 @@ def _decay_sheet(run: int, **plan: Any) -> DemoSheet:
         pens=(DemoPen("Vessel pressure", "kPa", "#232323", signal, span),),
         render=render,
         x_unit="min",
+        full_scale=3.0,  # decades of the log10 value axis
+        log_scale=True,
         **plan,
     )
 
 
 RETURN_COMMENT = (
-    "Around Thursday 18:00 the manual trace cuts the corner of the dip; please add vertices there "
-    "and check the dip against the scan before resubmitting."
+    "Around Thursday 18:00 the manual trace cuts the corner of the dip: the vertices skip it. Please add "
+    "vertices along the dip and check its lowest point against the scan before submitting again."
 )
+RETURN_REASON = "The Thursday evening dip is not traced closely enough; see the comment pinned on the sheet."
+WITHDRAW_REASON = "Roll torn between 09:00 and 13:00; the station logbook readings are used for this day instead."
 
 
 @cache
 def demo_sheets() -> tuple[DemoSheet, ...]:
     """Every demo sheet, with what the demo does to it."""
     return (
-        _level_sheet(0, stage="fitted", trace_mode="auto", digitizer="tech_a", workflow="approved",
-                     fits=(FitPlan("Reservoir level", "fourier", {"degree": 2, "period": 24}),
-                           FitPlan("Reservoir level", "spline"))),
-        _level_sheet(1, stage="fitted", trace_mode="manual", digitizer="tech_b", workflow="returned",
-                     fits=(FitPlan("Reservoir level", "spline"),), review_comment=RETURN_COMMENT),
-        _level_sheet(2, workflow="assigned", digitizer="tech_a"),
-        _pressure_sheet(0, stage="fitted", trace_mode="auto", digitizer="tech_b", workflow="submitted",
-                        fits=(FitPlan("Discharge pressure", "spline"),
-                              FitPlan("District pressure", "fourier", {"degree": 3, "period": 24}))),
+        _level_sheet(
+            0,
+            stage="fitted",
+            trace_mode="auto",
+            digitizer="tech_a",
+            workflow="approved",
+            fits=(FitPlan("Reservoir level", "fourier", {"degree": 2, "period": 24}),),
+        ),
+        _level_sheet(
+            1,
+            stage="fitted",
+            trace_mode="manual",
+            digitizer="tech_b",
+            workflow="returned",
+            fits=(FitPlan("Reservoir level", "spline"),),
+            manual_skip=(78.0, 86.0),
+            review_comment=RETURN_COMMENT,
+            comment_at=82.0,
+            workflow_reason=RETURN_REASON,
+        ),
+        _level_sheet(2, digitizer="tech_a", workflow="open"),
+        _pressure_sheet(
+            0,
+            stage="fitted",
+            trace_mode="auto",
+            digitizer="tech_b",
+            workflow="submitted",
+            fits=(
+                FitPlan("Discharge pressure", "spline"),
+                FitPlan("District pressure", "fourier", {"degree": 3, "period": 24}),
+            ),
+        ),
         _pressure_sheet(1, stage="calibrated", digitizer="tech_a", workflow="in_progress"),
-        _pressure_sheet(2, workflow="unassigned"),
-        _decay_sheet(0, stage="fitted", trace_mode="auto", digitizer="tech_b", workflow="in_review",
-                     fits=(FitPlan("Vessel pressure", "exponential"),)),
+        _pressure_sheet(2, digitizer="tech_b", workflow="withdrawn", assigned=False, workflow_reason=WITHDRAW_REASON),
+        _decay_sheet(
+            0,
+            stage="fitted",
+            trace_mode="auto",
+            digitizer="tech_b",
+            workflow="submitted",
+            fits=(FitPlan("Vessel pressure", "exponential"),),
+        ),
         _decay_sheet(1, stage="traced", trace_mode="auto", digitizer="tech_a", workflow="in_progress"),
     )
 

@@ -113,10 +113,13 @@ def refine_centres(sampler: ColumnSampler, model: PenColourModel, runs: PenRuns)
     weight_sum = _group_sum(weight, group, len(columns))
     moment = _group_sum(weight * (samples.positions + 0.5), group, len(columns))
     foreign = (fit.off_line > FOREIGN_OFF_LINE) & (fit.strength > FOREIGN_STRENGTH) & (score == 0.0) & inside
-    centres = _scatter(
-        sampler.n_columns, columns, moment / weight_sum, weight_sum, score[peak_index], pen_rgb, runs.paper_rgb
-    )
+    # A run with no weight at all (every sample off the sheet or off the pen-paper line) gives no centre:
+    # the column is dropped (a gap) rather than given a NaN vertex.
+    weighted = weight_sum > 0.0
+    centre = np.divide(moment, weight_sum, out=np.full_like(moment, np.nan), where=weighted)
+    centres = _scatter(sampler.n_columns, columns, centre, weight_sum, score[peak_index], pen_rgb, runs.paper_rgb)
     centres.touches_foreign[columns] = _group_sum(foreign.astype(np.float64), group, len(columns)) > 0
+    centres.found[columns[~weighted]] = False
     return centres
 
 
