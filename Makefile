@@ -18,9 +18,10 @@ $(VENV)/.test-installed: pyproject.toml | $(BIN)/python
 	$(BIN)/python -m pip install --quiet -e '.[test]'
 	touch $@ $(VENV)/.runtime-installed
 
-## Install into .venv and run the product on the embedded default (SQLite + local files).
+## Install into .venv and run the product on the embedded default (SQLite + local files); on the first run it
+## loads the demo archive and prints the passwords once (`tracedesk demo --remove` removes the demo).
 run: $(VENV)/.runtime-installed
-	$(BIN)/tracedesk serve
+	$(BIN)/tracedesk serve --demo
 
 ## Install the test dependencies and run the whole suite: lint, types, layering, tests.
 test: $(VENV)/.test-installed check unit
@@ -37,8 +38,9 @@ typecheck:
 layers:
 	$(BIN)/lint-imports
 
+# --dist loadgroup: the browser tests (one xdist group) share one worker, one server and one Chromium.
 unit:
-	$(BIN)/pytest -n 2 $(PYTEST_ARGS)
+	$(BIN)/pytest -n 2 --dist loadgroup $(PYTEST_ARGS)
 
 bench: $(VENV)/.test-installed
 	for script in bench/bench_*.py; do name=$$(basename $$script .py); echo "== $$name"; \

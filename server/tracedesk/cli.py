@@ -5,6 +5,7 @@ from __future__ import annotations
 import secrets
 import sys
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 import click
 from sqlalchemy import func, select
@@ -17,6 +18,9 @@ from tracedesk.migrate import upgrade_database
 from tracedesk.models import User
 from tracedesk.models.user import ROLES
 from tracedesk.web.state import AppState
+
+if TYPE_CHECKING:
+    from tracedesk.demo.loader import DemoSummary
 
 
 def _state(*, migrate: bool = True) -> AppState:
@@ -64,16 +68,49 @@ def _ensure_first_admin(state: AppState) -> None:
     click.secho(f"  user name: admin\n  password:  {password}   (shown once; change it after signing in)", bold=True)
 
 
+def _print_demo_accounts(summary: DemoSummary) -> None:
+    """The demo accounts, with the passwords generated now (printed this once, never stored in clear)."""
+    fresh = [account for account in summary.accounts if account.password]
+    if not fresh:
+        return
+    click.secho(
+        "Demo accounts (passwords shown once; the demo and these accounts go with `tracedesk demo --remove`):",
+        fg="green",
+    )
+    for account in fresh:
+        click.secho(
+            f"  {account.username:<15} {account.role:<11} {account.password}   ({account.display_name})", bold=True
+        )
+
+
+def _load_demo(state: AppState, *, dpi: int | None = None) -> None:
+    from tracedesk.demo.loader import load_demo
+    from tracedesk.demo.scenarios import DEMO_DPI
+
+    click.echo("Loading the demo archive (invented records drawn by Tracedesk; a minute or two the first time) ...")
+    summary = load_demo(state, progress=lambda message: click.echo(f"  {message}"), dpi=dpi or DEMO_DPI)
+    click.echo(f"demo archive ready: {len(summary.collections)} collection(s), {summary.sheets_added} new sheet(s)")
+    for note in summary.notes:
+        click.secho(f"  note: {note}", fg="yellow")
+    _print_demo_accounts(summary)
+
+
 @main.command()
 @click.option("--host", default="127.0.0.1", show_default=True)
 @click.option("--port", default=8000, show_default=True, type=int)
 @click.option("--workers", default=1, show_default=True, type=int, help="uvicorn worker processes")
-def serve(host: str, port: int, workers: int) -> None:
+@click.option("--demo", is_flag=True, help="load the demo archive first if the archive is still empty")
+def serve(host: str, port: int, workers: int, demo: bool) -> None:
     """Run the web service (on the embedded SQLite database and local files unless configured otherwise)."""
     import uvicorn
 
     state = _state()
     _ensure_first_admin(state)
+    if demo:
+        from tracedesk.demo.loader import first_run_wants_demo
+
+        if first_run_wants_demo(state):
+            _load_demo(state)
     state.engine.dispose()
     click.secho(f"Tracedesk is running at http://{host}:{port}/  (Ctrl+C stops it)", fg="cyan")
     uvicorn.run("tracedesk.asgi:app", host=host, port=port, workers=workers, log_level="info")
@@ -199,6 +236,56 @@ def audit_verify() -> None:
 
 
 @main.command()
+@click.option(
+    "--grace-hours",
+    type=click.FloatRange(min=0),
+    default=24.0,
+    show_default=True,
+    help="keep unreferenced files younger than this (uploads in flight use them)",
+)
+@click.option("--dry-run", is_flag=True, help="list what would be removed and remove nothing")
+@click.option("--allow-empty", is_flag=True, help="sweep even though the database references no file at all")
+def sweep(grace_hours: float, dry_run: bool, allow_empty: bool) -> None:
+    """Remove stored files no database row references (left by crashes, failed uploads, removed records)."""
+    from datetime import UTC, datetime, timedelta
+
+    from tracedesk.models import Sheet, SourceFile
+    from tracedesk.storage import sweep_orphans
+    from tracedesk.storage.durable import remove_entries_older_than
+
+    state = _state()
+    grace = timedelta(hours=grace_hours)
+    try:
+        with transaction(state.reader) as session:
+            keys = set(session.scalars(select(SourceFile.sha256)))
+            derived = set(session.scalars(select(Sheet.derived_key)))
+        if not (keys or derived or allow_empty):
+            _fail("the database references no stored file: is TRACEDESK_DATABASE_URL right? (--allow-empty)", 2)
+        report = sweep_orphans(
+            state.store,
+            referenced_keys=keys,
+            referenced_derived=derived,
+            grace=grace,
+            dry_run=dry_run,
+            allow_empty_references=True,
+        )
+        incoming = state.settings.data_dir / "incoming"  # uploads being received when a process died
+        stale_uploads = (
+            []
+            if dry_run or not incoming.is_dir()
+            else remove_entries_older_than(incoming, older_than=datetime.now(UTC) - grace)
+        )
+    finally:
+        state.engine.dispose()
+    verb = "would remove" if dry_run else "removed"
+    click.echo(
+        f"{verb} {len(report.removed_keys)} original(s), {len(report.removed_derived)} derived folder(s), "
+        f"{len(report.removed_temporaries) + len(stale_uploads)} temporary file(s); "
+        f"kept {report.kept_recent} unreferenced file(s) younger than {grace_hours:g} h"
+    )
+
+
+@main.command()
 @click.argument("destination", type=click.Path(path_type=Path))
 def backup(destination: Path) -> None:
     """Back up the database, the stored files and the audit chain into a new folder DESTINATION."""
@@ -249,6 +336,40 @@ def move_to_postgres_command(target_url: str) -> None:
         _fail(f"move failed: {error}", 1)
     click.echo(f"moved {sum(counts.values())} row(s); audit chain verified on PostgreSQL")
     click.echo(f"now set TRACEDESK_DATABASE_URL={target.url.render_as_string(hide_password=True)}")
+
+
+@main.command("demo")
+@click.option("--remove", is_flag=True, help="remove the demo collections and everything in them instead")
+@click.option("--dpi", type=click.IntRange(20, 600), default=None, help="scan resolution of the drawn sheets [200]")
+def demo_command(remove: bool, dpi: int | None) -> None:
+    """Load the demo archive (invented records, accounts printed once), or remove it with --remove."""
+    state = _state()
+    try:
+        if remove:
+            _remove_demo(state)
+            return
+        from tracedesk.errors import AppError
+
+        try:
+            _load_demo(state, dpi=dpi)
+        except AppError as error:
+            _fail(f"refused: {error.message}", 2)
+    finally:
+        state.engine.dispose()
+
+
+def _remove_demo(state: AppState) -> None:
+    from tracedesk.demo.removal import remove_demo
+
+    removed = remove_demo(state)
+    if not removed.anything:
+        click.echo("there is no demo archive to remove")
+        return
+    counts = ", ".join(f"{count} {kind.replace('_', ' ')}(s)" for kind, count in removed.removed.items() if count)
+    click.echo(f"demo archive removed: {counts}; {removed.files_removed} stored file(s) deleted")
+    if removed.accounts_disabled:
+        click.echo(f"demo accounts disabled: {', '.join(removed.accounts_disabled)}")
+    click.echo("the audit trail keeps every event about the demo")
 
 
 @main.command("import")

@@ -41,16 +41,22 @@ def _calibration() -> dict[str, object]:
     for x, y in corners:
         u, v = MAPPING.data_to_pixel(np.array([x]), np.array([y]))[0]
         points.append({"pixel": [float(u), float(v)], "value": [x, y]})
-    return {"kind": "cartesian", "x_axis": {"scale": "time"}, "y_axis": {"scale": "linear", "unit": "m"},
-            "control_points": points, "transform": "auto"}
+    return {
+        "kind": "cartesian",
+        "x_axis": {"scale": "time"},
+        "y_axis": {"scale": "linear", "unit": "m"},
+        "control_points": points,
+        "transform": "auto",
+    }
 
 
 @pytest.fixture
 def sheet_id(signed_in: dict[str, TestClient]) -> int:
     tech = signed_in["technician"]
     collection_id = tech.post("/api/v1/collections", json={"name": "Reservoir levels"}).json()["id"]
-    upload = tech.post(f"/api/v1/collections/{collection_id}/sheets",
-                       files=[("files", ("level.png", _chart_png(), "image/png"))])
+    upload = tech.post(
+        f"/api/v1/collections/{collection_id}/sheets", files=[("files", ("level.png", _chart_png(), "image/png"))]
+    )
     assert upload.status_code == 201, upload.text
     return int(upload.json()["sheets"][0]["id"])
 
@@ -82,8 +88,10 @@ def test_calibration_reports_residuals_and_needs_if_match_to_change(
     [
         ({"control_points": [{"pixel": [10, 10], "value": [0, 0]}]}, ""),
         ({"y_axis": {"scale": "log10"}}, "log"),
-        ({"control_points": [{"pixel": [5000, 10], "value": [0, 0]}, {"pixel": [20, 20], "value": [1, 1]}]},
-         "outside the sheet"),
+        (
+            {"control_points": [{"pixel": [5000, 10], "value": [0, 0]}, {"pixel": [20, 20], "value": [1, 1]}]},
+            "outside the sheet",
+        ),
     ],
 )
 def test_bad_calibrations_are_refused_and_nothing_is_stored(
@@ -102,8 +110,10 @@ def test_bad_calibrations_are_refused_and_nothing_is_stored(
 def test_auto_trace_fit_and_csv_match_the_truth(signed_in: dict[str, TestClient], sheet_id: int) -> None:
     tech = signed_in["technician"]
     _calibrate(tech, sheet_id)
-    response = tech.post(f"/api/v1/sheets/{sheet_id}/traces/auto", json={
-        "name": "level", "unit": "m", "pen_color": PEN, "region": {"box": [62, 42, 1138, 538]}})
+    response = tech.post(
+        f"/api/v1/sheets/{sheet_id}/traces/auto",
+        json={"name": "level", "unit": "m", "pen_color": PEN, "region": {"box": [62, 42, 1138, 538]}},
+    )
     assert response.status_code == 201, response.text
     trace = response.json()
     samples = np.array(trace["samples"], dtype=float)
@@ -116,8 +126,11 @@ def test_auto_trace_fit_and_csv_match_the_truth(signed_in: dict[str, TestClient]
     assert fit.status_code == 201, fit.text
     coefficients = fit.json()["coefficients"]
     x = np.linspace(fit.json()["domain"][0], fit.json()["domain"][1], 400)
-    fitted = coefficients["a0"] + coefficients["a1"] * np.cos(2 * np.pi * x / 24) + coefficients["b1"] * np.sin(
-        2 * np.pi * x / 24)
+    fitted = (
+        coefficients["a0"]
+        + coefficients["a1"] * np.cos(2 * np.pi * x / 24)
+        + coefficients["b1"] * np.sin(2 * np.pi * x / 24)
+    )
     assert np.max(np.abs(fitted - truth(x))) / FULL_SCALE < 0.001
     assert set(fit.json()["equation"]) == {"text", "latex", "python", "spreadsheet"}
 
@@ -135,9 +148,7 @@ def test_auto_trace_fit_and_csv_match_the_truth(signed_in: dict[str, TestClient]
     assert abs(first_day["maximum"] - 5.0) < 0.02 and abs(first_day["maximum_time"] - 6.0) < 0.3
 
 
-def test_auto_trace_bad_input_is_refused_and_nothing_is_stored(
-    signed_in: dict[str, TestClient], sheet_id: int
-) -> None:
+def test_auto_trace_bad_input_is_refused_and_nothing_is_stored(signed_in: dict[str, TestClient], sheet_id: int) -> None:
     tech = signed_in["technician"]
     url = f"/api/v1/sheets/{sheet_id}/traces/auto"
     outside = tech.post(url, json={"name": "x", "pen_color": PEN, "region": {"box": [5000, 0, 6000, 100]}})

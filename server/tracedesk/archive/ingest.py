@@ -16,6 +16,7 @@ from pathlib import Path
 from typing import IO, Protocol
 
 from sqlalchemy import select
+from sqlalchemy.exc import IntegrityError
 from sqlalchemy.orm import Session
 
 from tracedesk.archive.files import NORMALISED_NAME, PYRAMID_BASENAME, THUMBNAIL_NAME
@@ -32,10 +33,12 @@ from tracedesk.imaging.pages import UploadInfo, examine_upload, iter_sheets
 from tracedesk.imaging.pyramid import save_pyramid, save_thumbnail
 from tracedesk.models import Sheet, SourceFile
 from tracedesk.storage import DerivedStaging, FileStore, StorageError, sha256_of_file
+from tracedesk.storage.durable import storage_error_from
 from tracedesk.web.state import AppState
 
 RECEIVE_CHUNK = 1 << 20
 MAX_FILENAME = 255
+INSERT_ATTEMPTS = 3
 
 
 class IncomingFile(Protocol):
@@ -80,6 +83,9 @@ def receive(incoming: IncomingFile, folder: Path, *, max_bytes: int) -> Received
                 if size > max_bytes:
                     raise PayloadTooLarge(f"the file is larger than the limit of {max_bytes / 2**20:g} MiB")
                 handle.write(chunk)
+    except OSError as exc:  # e.g. the disk filled up: 507 with a message, not a bare 500
+        path.unlink(missing_ok=True)
+        raise storage_error_from(exc, action="receiving the upload") from exc
     except BaseException:
         path.unlink(missing_ok=True)
         raise
@@ -131,9 +137,11 @@ def _prepare_pages(store: FileStore, info: UploadInfo) -> list[PreparedPage]:
                 PreparedPage(key, page.width, page.height, page.dpi[0] if page.dpi else None, page.page_index, staging)
             )
             _write_derived(page, staging.path)
-    except BaseException:
+    except BaseException as exc:
         for item in prepared:
             item.staging.discard()
+        if isinstance(exc, OSError):
+            raise storage_error_from(exc, action="writing the sheet's images") from exc
         raise
     return prepared
 
@@ -193,13 +201,33 @@ def _insert_rows(
     return created
 
 
-def _undo_files(store: FileStore, pages: list[PreparedPage], original_key: str | None) -> None:
+def _undo_files(store: FileStore, pages: list[PreparedPage]) -> None:
+    """Remove this upload's own derived folders. The original is left to the orphan sweep: another upload of
+    the same bytes may be using it at this moment (a row it is about to write, or one a concurrent winner just
+    wrote), and only the sweep's grace period makes removing it safe."""
     for page in pages:
         with contextlib.suppress(StorageError, OSError):
             store.delete_derived(page.derived_key)
-    if original_key is not None:
-        with contextlib.suppress(StorageError, OSError):
-            store.delete(original_key)
+
+
+def _record_rows(
+    state: AppState,
+    collection_id: int,
+    actor: Actor,
+    received: ReceivedFile,
+    info: UploadInfo,
+    pages: list[PreparedPage],
+) -> list[SheetWithSource]:
+    """Write the rows; when a concurrent upload of the same bytes committed first (PostgreSQL reports it as a
+    unique-key violation), try again: the next attempt sees its rows (a duplicate, or a shared original)."""
+    for attempt in range(INSERT_ATTEMPTS):
+        try:
+            with transaction(state.writer) as session:
+                return _insert_rows(session, collection_id, actor, received, info, pages)
+        except IntegrityError:
+            if attempt + 1 == INSERT_ATTEMPTS:
+                raise
+    raise AssertionError("unreachable")
 
 
 def ingest_received(state: AppState, collection_id: int, actor: Actor, received: ReceivedFile) -> list[SheetWithSource]:
@@ -222,17 +250,15 @@ def ingest_received(state: AppState, collection_id: int, actor: Actor, received:
         pdf_dpi=settings.pdf_dpi,
     )
     pages = _prepare_pages(state.store, info)
-    new_original = None if state.store.exists(received.sha256) else received.sha256
     try:
         state.store.put_file(received.path, expected_sha256=received.sha256)
         for page in pages:
             page.staging.publish()
-        with transaction(state.writer) as session:
-            return _insert_rows(session, collection_id, actor, received, info, pages)
+        return _record_rows(state, collection_id, actor, received, info, pages)
     except BaseException:
         for page in pages:
             page.staging.discard()
-        _undo_files(state.store, pages, new_original)
+        _undo_files(state.store, pages)
         raise
 
 
@@ -256,7 +282,7 @@ def ingest_uploads(state: AppState, collection_id: int, actor: Actor, incoming: 
         filename = clean_filename(part.filename)
         try:
             received = receive(part, incoming_dir, max_bytes=state.settings.max_upload_bytes)
-        except AppError as error:
+        except (AppError, StorageError) as error:
             refused.append(_refusal(filename, error))
             continue
         try:

@@ -23,9 +23,13 @@ Editor = Annotated[Principal, Depends(requires(Permission.EDIT_ARCHIVE))]
 PAGE_SIZE = 48
 
 
-@router.get("/")
-def home(_: Reader) -> Response:
-    return RedirectResponse("/collections", status_code=303)
+@router.get("/", response_class=HTMLResponse)
+def home(request: Request, principal: Reader, db: SessionDep) -> Response:
+    """The home page: the first-run checklist and, when loaded, the demo tour (``tracedesk.demo.home``)."""
+    from tracedesk.demo.home import home_context
+
+    is_admin = principal.can(Permission.MANAGE_USERS)
+    return render(request, "home.html", principal, home_context(db, is_admin=is_admin))
 
 
 def _collections_page(

@@ -18,7 +18,7 @@ from tracedesk.models.base import utcnow
 from tracedesk.science.calibration import ChartMapping, build_calibration
 
 _CACHE_SIZE = 256
-_cache: OrderedDict[tuple[int, int], ChartMapping] = OrderedDict()
+_cache: OrderedDict[tuple[int, int, str], ChartMapping] = OrderedDict()
 _cache_lock = Lock()
 
 
@@ -34,8 +34,12 @@ def require_calibration(session: Session, sheet_id: int) -> Calibration:
 
 
 def mapping_of(row: Calibration) -> ChartMapping:
-    """The calibration object for a stored row, cached per (row, version): rebuilding refits the points."""
-    key = (row.id, row.version)
+    """The calibration object for a stored row, cached per (row, version, spec): rebuilding refits the points.
+
+    The spec is part of the key because row ids and versions repeat across databases served by one process
+    (test databases, a restored backup), and a cached mapping must never answer for another calibration.
+    """
+    key = (row.id, row.version, row.spec)
     with _cache_lock:
         if key in _cache:
             _cache.move_to_end(key)

@@ -30,7 +30,7 @@ def round_ticks(low: float, high: float, *, target: int = 6) -> list[float]:
     power = 10.0 ** math.floor(math.log10(raw))
     step = next(m * power for m in (1.0, 2.0, 5.0, 10.0) if m * power >= raw)
     first = math.ceil(low / step - 1e-9) * step
-    count = int(math.floor((high - first) / step + 1e-9)) + 1
+    count = math.floor((high - first) / step + 1e-9) + 1
     return [round(first + k * step, 12) for k in range(min(count, MAX_LINES_PER_AXIS))]
 
 
@@ -40,7 +40,7 @@ def hour_ticks(low: float, high: float, *, target: int = 8) -> list[float]:
         return []
     step = next((s for s in HOUR_STEPS if (high - low) / s <= target), HOUR_STEPS[-1])
     first = math.ceil(low / step - 1e-9) * step
-    count = int(math.floor((high - first) / step + 1e-9)) + 1
+    count = math.floor((high - first) / step + 1e-9) + 1
     return [first + k * step for k in range(min(count, MAX_LINES_PER_AXIS))]
 
 
@@ -70,10 +70,10 @@ def _along(scale: str, low: float, high: float) -> FloatArray:
 
 def _pieces(pixels: FloatArray) -> list[list[list[float]]]:
     """Split a mapped line where it leaves the calibration (NaN), dropping pieces of a single point."""
-    finite = np.isfinite(pixels).all(axis=1)
+    finite = [math.isfinite(u) and math.isfinite(v) for u, v in pixels.tolist()]
     pieces: list[list[list[float]]] = []
     current: list[list[float]] = []
-    for ok, point in zip(finite.tolist(), pixels.tolist(), strict=True):
+    for ok, point in zip(finite, pixels.tolist(), strict=True):
         if ok:
             current.append([round(point[0], 2), round(point[1], 2)])
             continue
@@ -133,7 +133,9 @@ def cartesian_grid(mapping: ChartMapping, spec: Mapping[str, Any], size: tuple[i
     for tick in ticks_for(x_scale, *x_range.tolist()):
         lines += _line(mapping, "x", tick, _along(y_scale, *y_range.tolist()), _label(tick, x_unit))
     for tick in ticks_for(y_scale, *y_range.tolist()):
-        lines += _line(mapping, "y", tick, _along(x_scale, *x_range.tolist()), _label(tick, str(y_axis.get("unit") or "")))
+        lines += _line(
+            mapping, "y", tick, _along(x_scale, *x_range.tolist()), _label(tick, str(y_axis.get("unit") or ""))
+        )
     return lines
 
 

@@ -54,7 +54,9 @@ def read_window(store: FileStore, derived_key: str, *, box: tuple[int, int, int,
     if isinstance(store, LocalFileStore):
         image = pyvips.Image.new_from_file(str(store.derived_file_path(derived_key, NORMALISED_NAME)), access="random")
         block = image.crop(column0, row0, column1 - column0, row1 - row0)
-        pixels: NDArray[np.uint8] = np.asarray(block.numpy(), dtype=np.uint8).reshape(row1 - row0, column1 - column0, -1)
+        pixels: NDArray[np.uint8] = np.asarray(block.numpy(), dtype=np.uint8).reshape(
+            row1 - row0, column1 - column0, -1
+        )
         return Window(pixels[:, :, :3], column0, row0)
     whole = load_sheet_image(store, derived_key)
     return Window(whole[row0:row1, column0:column1, :3], column0, row0)
@@ -63,7 +65,7 @@ def read_window(store: FileStore, derived_key: str, *, box: tuple[int, int, int,
 def window_box(*, u: float, v: float, radius_px: float, width: int, height: int) -> tuple[int, int, int, int]:
     """The paper window around (u, v): three times the disc radius plus a margin, clipped to the sheet."""
     reach = math.ceil(3.0 * radius_px) + 4
-    column, row = min(max(int(math.floor(u)), 0), width - 1), min(max(int(math.floor(v)), 0), height - 1)
+    column, row = min(max(math.floor(u), 0), width - 1), min(max(math.floor(v), 0), height - 1)
     return max(column - reach, 0), max(row - reach, 0), min(column + reach + 1, width), min(row + reach + 1, height)
 
 

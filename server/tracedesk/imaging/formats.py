@@ -16,6 +16,10 @@ from tracedesk.imaging.errors import UnsupportedFileType
 
 #: Bytes read from the start of a file to decide its type and to look for polyglot markers.
 HEAD_BYTES = 1024
+#: Bytes read from the end of a raster file: a ZIP directory ends within its last 64 KiB + 22 bytes (the
+#: end-of-central-directory record and its comment, PKWARE APPNOTE sec. 4.3.16, from memory).
+TAIL_BYTES = 65_557
+_ZIP_END_RECORD = b"PK\x05\x06"
 
 ACCEPTED_SUMMARY = "upload PNG, JPEG, TIFF or PDF"
 
@@ -167,6 +171,31 @@ def find_polyglot_marker(head: bytes) -> str | None:
         if marker in lowered:
             return description
     return None
+
+
+def _ends_with_zip_directory(tail: bytes) -> bool:
+    start = tail.rfind(_ZIP_END_RECORD)
+    while start >= 0:
+        comment_length = int.from_bytes(tail[start + 20 : start + 22], "little")
+        if start + 22 + comment_length == len(tail):
+            return True
+        start = tail.rfind(_ZIP_END_RECORD, 0, start)
+    return False
+
+
+def find_trailing_polyglot(tail: bytes) -> str | None:
+    """What another format appended to a raster file's end looks like (a ZIP archive, markup, a PDF), or None.
+
+    ZIP readers start from the end-of-central-directory record at the file's end, so an image with a ZIP
+    appended opens as an archive too; the record counts only where its comment length makes it end exactly at
+    the end of the file, so compressed pixel data that happens to contain the 4-byte signature passes.
+    """
+    if _ends_with_zip_directory(tail):
+        return "a ZIP archive at its end"
+    marker = find_polyglot_marker(tail[-HEAD_BYTES:])
+    if marker is None and b"%%eof" in tail[-HEAD_BYTES:].lower():
+        marker = "a PDF trailer"
+    return f"{marker} at its end" if marker else None
 
 
 def identify_format(

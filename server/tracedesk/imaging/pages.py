@@ -14,8 +14,8 @@ from dataclasses import dataclass
 from pathlib import Path
 
 from tracedesk.imaging.decode import PageInfo, load_raster_page, survey_raster
-from tracedesk.imaging.errors import CorruptUpload, FileTooLarge
-from tracedesk.imaging.formats import HEAD_BYTES, ImageFormat, identify_format
+from tracedesk.imaging.errors import CorruptUpload, FileTooLarge, UnsupportedFileType
+from tracedesk.imaging.formats import HEAD_BYTES, TAIL_BYTES, ImageFormat, find_trailing_polyglot, identify_format
 from tracedesk.imaging.limits import DEFAULT_LIMITS, DEFAULT_PDF_DPI, DecodeLimits, check_pdf_dpi
 from tracedesk.imaging.normalise import NormalisedSheet, normalise_page
 from tracedesk.imaging.pdf import render_pdf_page, survey_pdf
@@ -66,6 +66,18 @@ def _read_head(path: Path, *, limits: DecodeLimits) -> tuple[bytes, int]:
         return stream.read(HEAD_BYTES), size
 
 
+def _refuse_appended_content(path: Path, image_format: ImageFormat, size: int) -> None:
+    """A raster file with another format appended (PNG + ZIP, JPEG + HTML) is a polyglot: refused like one."""
+    with path.open("rb") as stream:
+        stream.seek(max(0, size - TAIL_BYTES))
+        found = find_trailing_polyglot(stream.read())
+    if found is not None:
+        raise UnsupportedFileType(
+            f"the {image_format.name} file also carries {found}, so other programs could read it as a different "
+            "type; re-save it as a plain image"
+        )
+
+
 def examine_upload(
     path: Path,
     *,
@@ -100,6 +112,7 @@ def examine_upload(
     if image_format is ImageFormat.PDF:
         pages = survey_pdf(path, limits=limits, pdf_dpi=dpi)
     else:
+        _refuse_appended_content(path, image_format, size)
         pages = survey_raster(path, image_format, limits=limits)
     return UploadInfo(
         path=path,

@@ -7,7 +7,7 @@ from typing import Any
 
 from sqlalchemy import DateTime, MetaData, TypeDecorator
 from sqlalchemy.engine import Dialect
-from sqlalchemy.orm import DeclarativeBase
+from sqlalchemy.orm import DeclarativeBase, declared_attr
 
 NAMING_CONVENTION = {
     "ix": "ix_%(column_0_label)s",
@@ -47,3 +47,16 @@ class UTCDateTime(TypeDecorator[datetime]):
 
 class Base(DeclarativeBase):
     metadata = MetaData(naming_convention=NAMING_CONVENTION)
+
+    @declared_attr.directive
+    def __mapper_args__(cls) -> dict[str, Any]:  # noqa: N805 - a declared_attr receives the class
+        """Tables with a ``version`` column update only the version that was read (``WHERE version = ...``).
+
+        The services still set the new version themselves; this makes a concurrent change fail the flush
+        (StaleDataError, answered 412/409) instead of being silently overwritten: on PostgreSQL two requests can
+        both pass their If-Match check before either commits (RELIABILITY.md, lost updates).
+        """
+        table = getattr(cls, "__table__", None)
+        if table is not None and "version" in table.c:
+            return {"version_id_col": table.c.version, "version_id_generator": False}
+        return {}

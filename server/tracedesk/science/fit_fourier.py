@@ -8,6 +8,7 @@ the period, from the Jacobian of the full model at the optimum.
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass
 from typing import Any, Final
 
@@ -128,6 +129,8 @@ def fit_fourier(
         raise ScienceInputError("give either a period or period_bounds to search, not both")
     else:
         period = check_positive_number(period, name="period")
+        if not math.isfinite(2.0 * math.pi / period):  # a subnormal period: its angular frequency overflows
+            raise ScienceInputError(f"the period {period:g} is too small to fit a Fourier series with")
     solution = solve_fourier_coefficients(samples, degree=degree, period=period, folds=folds)
     summary = summarise_linear_solution(
         samples, solution, absolute_sigma=absolute_sigma, extra_parameters=int(estimated)

@@ -2,14 +2,18 @@
 
 from __future__ import annotations
 
+from typing import Any
 from urllib.parse import quote
 
 from fastapi import FastAPI, Request
 from fastapi.responses import JSONResponse, RedirectResponse, Response
+from sqlalchemy.exc import DataError
+from sqlalchemy.orm.exc import StaleDataError
 from starlette.exceptions import HTTPException as StarletteHTTPException
 
-from tracedesk.errors import AppError, NotAuthenticated
+from tracedesk.errors import AppError, Conflict, NotAuthenticated, PreconditionFailed, Unprocessable
 from tracedesk.science.errors import ScienceInputError
+from tracedesk.storage import StorageError
 from tracedesk.web.templating import render
 
 
@@ -39,6 +43,26 @@ async def handle_science_error(request: Request, error: Exception) -> Response:
     return await handle_app_error(request, AppError.with_status(422, str(error), code="invalid"))
 
 
+async def handle_stale_write(request: Request, error: Exception) -> Response:
+    """Another request changed the record between this one's read and its write (``version_id_col``)."""
+    message = "someone else changed this record at the same moment; reload it and apply your change again"
+    refusal = PreconditionFailed(message) if request.headers.get("if-match") else Conflict(message)
+    return await handle_app_error(request, refusal)
+
+
+async def handle_storage_error(request: Request, error: Exception) -> Response:
+    """Storage failures carry their own status (404 missing, 507 disk full, 500 corrupt) and a clear message."""
+    assert isinstance(error, StorageError)
+    return await handle_app_error(request, AppError.with_status(error.http_status, str(error), code=error.code))
+
+
+async def handle_out_of_range(request: Request, error: Exception) -> Response:
+    """A number beyond what the database stores (an id of 2**70) or, on PostgreSQL, a text longer than its
+    column: the request is wrong, not the server (the transaction was rolled back)."""
+    message = "a value in the request is out of range for the archive (a number too large or a text too long)"
+    return await handle_app_error(request, Unprocessable(message))
+
+
 async def handle_http_error(request: Request, error: Exception) -> Response:
     assert isinstance(error, StarletteHTTPException)
     if _wants_page(request):
@@ -49,4 +73,29 @@ async def handle_http_error(request: Request, error: Exception) -> Response:
 def install_error_handlers(app: FastAPI) -> None:
     app.add_exception_handler(AppError, handle_app_error)
     app.add_exception_handler(ScienceInputError, handle_science_error)
+    app.add_exception_handler(StaleDataError, handle_stale_write)
+    app.add_exception_handler(StorageError, handle_storage_error)
+    app.add_exception_handler(OverflowError, handle_out_of_range)
+    app.add_exception_handler(DataError, handle_out_of_range)
+    document_error_shape(app)
+
+
+def document_error_shape(app: FastAPI) -> None:
+    """Say in the OpenAPI schema what a 422 really looks like: FastAPI's validation errors list their problems
+    (``detail`` is an array), our own refusals name one (``detail`` is a sentence, with ``code`` and maybe
+    ``context``); the documented shape must cover both, or clients that trust the schema break."""
+    generate = app.openapi
+
+    def openapi() -> dict[str, Any]:
+        if app.openapi_schema is None:
+            schema = generate()
+            validation = schema.get("components", {}).get("schemas", {}).get("HTTPValidationError")
+            if validation is not None:
+                listed = validation["properties"]["detail"]
+                validation["properties"]["detail"] = {"anyOf": [listed, {"type": "string"}], "title": "Detail"}
+                validation["properties"]["code"] = {"type": "string", "title": "Code"}
+                validation["properties"]["context"] = {"title": "Context"}
+        return app.openapi_schema or generate()
+
+    app.openapi = openapi  # type: ignore[method-assign]
     app.add_exception_handler(StarletteHTTPException, handle_http_error)

@@ -10,10 +10,11 @@ import numpy as np
 from sqlalchemy.orm import Session
 
 from tracedesk.audit.service import Actor, record_event
+from tracedesk.digitizing.calibrations import calibration_of, mapping_of
 from tracedesk.digitizing.traces import samples_of, traces_of_sheet, withdraw_trace
 from tracedesk.errors import Conflict, Unprocessable
 from tracedesk.models import Task, Trace
-from tracedesk.workflow.agreement import TraceAgreement, compare_traces
+from tracedesk.workflow.agreement import TraceAgreement, compare_traces, piecewise_linear_samples
 from tracedesk.workflow.authorship import KEEP_DECISION_PREFIX
 
 
@@ -119,3 +120,22 @@ def keep_one_set(session: Session, task: Task, *, keep: str, reason: str, actor:
         reason=reason,
     )
     return [trace.id for trace in dropped]
+
+
+def difference_positions(session: Session, task: Task, report: AgreementReport) -> list[tuple[float, float, str]]:
+    """Sheet pixels (u, v) on the first technician's trace where each pair differs most, with a label."""
+    row = calibration_of(session, task.sheet_id)
+    if row is None:
+        return []
+    mapping = mapping_of(row)
+    positions = []
+    for pair in report.pairs:
+        found = pair.agreement
+        if found is None:
+            continue
+        x, y = piecewise_linear_samples(*_finite_samples(session, pair.first))
+        value = float(np.interp(found.max_at, x, y))
+        u, v = mapping.values_to_pixels(np.array([[found.max_at, value]]))[0]
+        label = f"{pair.name}: largest difference {found.max_difference:.4g} {pair.first.unit}".rstrip()
+        positions.append((float(u), float(v), label))
+    return positions

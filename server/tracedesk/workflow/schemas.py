@@ -3,25 +3,27 @@
 from __future__ import annotations
 
 from datetime import date, datetime
-from typing import Literal
+from typing import Annotated, Literal
 
 from pydantic import BaseModel, ConfigDict, Field, model_validator
 
 Priority = Literal["low", "normal", "high", "urgent"]
 TaskState = Literal["open", "in_progress", "submitted", "returned", "approved", "withdrawn"]
 Meaning = Literal["reviewed", "approved"]
+# Ids sent in bodies stay within the database's integer range (a larger one is a 422, not a database error).
+Id = Annotated[int, Field(ge=1, le=2_147_483_647)]
 
 
 class TaskBulkCreate(BaseModel):
     """Tasks for a collection's sheets: the listed ones, or every sheet that has no task yet."""
 
     model_config = ConfigDict(extra="forbid")
-    sheet_ids: list[int] | None = Field(default=None, max_length=10_000)
-    technician_id: int | None = None
-    second_technician_id: int | None = Field(
+    sheet_ids: list[Id] | None = Field(default=None, max_length=10_000)
+    technician_id: Id | None = None
+    second_technician_id: Id | None = Field(
         default=None, description="double digitization only: the technician who digitizes the sheet a second time"
     )
-    reviewer_id: int | None = None
+    reviewer_id: Id | None = None
     priority: Priority = "normal"
     due_date: date | None = None
 
@@ -30,9 +32,9 @@ class TaskUpdate(BaseModel):
     """Reassignment and planning (reviewers and admins). A field sent as null clears it; a field left out stays."""
 
     model_config = ConfigDict(extra="forbid")
-    technician_id: int | None = None
-    second_technician_id: int | None = None
-    reviewer_id: int | None = None
+    technician_id: Id | None = None
+    second_technician_id: Id | None = None
+    reviewer_id: Id | None = None
     priority: Priority | None = None
     due_date: date | None = None
     double_digitization: bool | None = None
@@ -117,7 +119,7 @@ class CommentCreate(BaseModel):
     body: str = Field(min_length=1, max_length=5000)
     u: float | None = Field(default=None, allow_inf_nan=False)
     v: float | None = Field(default=None, allow_inf_nan=False)
-    trace_id: int | None = None
+    trace_id: Id | None = None
 
     @model_validator(mode="after")
     def _both_or_neither(self) -> CommentCreate:

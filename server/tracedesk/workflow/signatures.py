@@ -16,7 +16,7 @@ from sqlalchemy.orm import Session
 from tracedesk.accounts.service import confirm_password
 from tracedesk.audit.service import record_event
 from tracedesk.errors import Conflict, Forbidden, NotFound
-from tracedesk.models import Sheet, Signature, Task, User
+from tracedesk.models import LoginAttempt, Sheet, Signature, Task, User
 from tracedesk.models.base import utcnow
 from tracedesk.workflow.access import may_review, require_may_take
 from tracedesk.workflow.authorship import digitization_authors
@@ -192,4 +192,18 @@ def signature_read(status: SignatureStatus) -> SignatureRead:
         valid=status.valid,
         void_reason=status.void_reason,
         withdrawn_at=signature.withdrawn_at,
+    )
+
+
+def record_refusal(session: Session, task: Task, user: User, *, address: str) -> None:
+    """A wrong password at signing counts towards login throttling and is shown in the audit trail."""
+    session.add(LoginAttempt(username=user.username, address=address[:64], succeeded=False))
+    record_event(
+        session,
+        actor=actor_of(user),
+        action="sign_refused",
+        entity_type="task",
+        entity_id=task.id,
+        entity_version=task.version,
+        reason="the password did not match",
     )

@@ -43,7 +43,7 @@ export function createCalibratePanel(panel, wb) {
   table.placeTool.onLeave = () => placeButton.setAttribute("aria-pressed", "false");
 
   wb.overlay.addLayer(calibrationLayer({
-    visible: () => true,
+    visible: () => wb.activeTab() === "calibrate",
     grid: () => (preview ? preview.grid : []),
     geometry: () => draftGeometry(form),
     points: () => table.points,
@@ -216,6 +216,12 @@ export function createCalibratePanel(panel, wb) {
     placeButton.setAttribute("aria-pressed", String(event.detail === table.placeTool));
   });
   placeButton.addEventListener("click", () => togglePlacing());
+  panel.querySelector('[data-action="add-point-row"]').addEventListener("click", () => {
+    const t = wb.viewer.transform();
+    if (!t) return;
+    const [u, v] = wb.viewer.toImage(t, wb.viewer.element.clientWidth / 2, wb.viewer.element.clientHeight / 2);
+    table.addPoint(u, v);
+  });
   form.addEventListener("input", (event) => { if (!event.target.closest("[data-points-table]")) schedulePreview(); });
   form.kind.addEventListener("change", () => { showKind(); schedulePreview(); });
   form.addEventListener("submit", save);

@@ -7,7 +7,7 @@ export const RESIDUAL_EXAGGERATION = 20;
 const POINT = "#a61e4d";
 const GRID = "#0b7285";
 
-function drawGrid(context, t, grid) {
+function drawGrid(context, t, grid, circular) {
   context.setLineDash([6, 4]);
   context.lineWidth = 1;
   context.strokeStyle = GRID;
@@ -17,7 +17,9 @@ function drawGrid(context, t, grid) {
   }
   context.setLineDash([]);
   for (const line of grid) {
-    const [x, y] = elementPoint(t, ...line.points[0]);
+    // Time lines of a circular chart start at the crowded centre: label them at their outer end instead.
+    const at = circular && line.axis === "x" ? line.points[line.points.length - 1] : line.points[0];
+    const [x, y] = elementPoint(t, ...at);
     label(context, line.label, x + 3, y - 3, GRID);
   }
 }
@@ -93,7 +95,7 @@ export function calibrationLayer(model) {
     order: 10,
     draw(context, t) {
       if (!model.visible()) return;
-      drawGrid(context, t, model.grid());
+      drawGrid(context, t, model.grid(), model.geometry().kind === "circular");
       drawGeometry(context, t, model.geometry());
       drawPoints(context, t, model.points(), model.residuals(), model.selected());
     },

@@ -142,6 +142,16 @@ export function createPointsTable({ table, viewer, overlay, onChange, canEdit })
     placeTool,
     get points() { return points; },
     get selected() { return selected; },
+    // A point typed rather than clicked (keyboard use): it starts at the given pixel, usually the view's centre.
+    addPoint(u, v) {
+      points.push({ u, v, x: "", y: "" });
+      selected = points.length - 1;
+      render();
+      overlay.requestDraw();
+      const field = body.rows[selected] && body.rows[selected].querySelector('input[name="u"]');
+      if (field) field.focus();
+      onChange();
+    },
     setPoints(next) { points = next; residuals = []; selected = -1; render(); overlay.requestDraw(); },
     setResiduals(next) {
       residuals = next || [];

@@ -61,21 +61,41 @@ export function createOverlay(stage, viewer) {
 }
 
 // Helpers shared by the layers. Points are [u, v] pairs in image pixels; null or NaN entries break the line.
+// Vertices closer than MERGE_PX on screen to the last one drawn are skipped: at a whole-sheet view a 20,000-vertex
+// trace has dozens of vertices per screen pixel, and stroking them all costs time without changing a pixel.
+const MERGE_PX = 0.6;
+
 export function tracePath(context, t, points) {
   context.beginPath();
   let open = false;
-  for (let k = 0; k < points.length; k += 1) {
+  let lastX = 0;
+  let lastY = 0;
+  let skipped = null;
+  const end = points.length - 1;
+  for (let k = 0; k <= end; k += 1) {
     const point = points[k];
     if (!point || point[0] === null || point[1] === null || Number.isNaN(point[0])) {
+      if (skipped) context.lineTo(skipped[0], skipped[1]);
       open = false;
+      skipped = null;
       continue;
     }
     const x = t.ox + t.ux * point[0] + t.vx * point[1];
     const y = t.oy + t.uy * point[0] + t.vy * point[1];
-    if (open) context.lineTo(x, y);
-    else context.moveTo(x, y);
-    open = true;
+    if (!open) {
+      context.moveTo(x, y);
+      open = true;
+    } else if (Math.abs(x - lastX) + Math.abs(y - lastY) < MERGE_PX && k !== end) {
+      skipped = [x, y];
+      continue;
+    } else {
+      context.lineTo(x, y);
+    }
+    lastX = x;
+    lastY = y;
+    skipped = null;
   }
+  if (skipped) context.lineTo(skipped[0], skipped[1]);
 }
 
 export function strokeWithHalo(context, width, colour, halo = "rgba(255,255,255,0.85)") {
