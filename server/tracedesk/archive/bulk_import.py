@@ -51,8 +51,9 @@ def candidate_files(folder: Path) -> list[Path]:
 
 
 def _import_one(state: AppState, collection_id: int, actor: Actor, path: Path, summary: ImportSummary) -> None:
-    received = ReceivedFile(path=path, filename=path.name, media_type=None, sha256=sha256_of_file(path),
-                            size=path.stat().st_size)
+    received = ReceivedFile(
+        path=path, filename=path.name, media_type=None, sha256=sha256_of_file(path), size=path.stat().st_size
+    )
     try:
         summary.accepted += len(ingest_received(state, collection_id, actor, received))
     except Conflict as error:
