@@ -13,6 +13,7 @@ from tracedesk.errors import NotFound
 from tracedesk.storage import FileStore, InvalidStorageName, LocalFileStore, StoredFileMissing
 
 NORMALISED_NAME = "normalised.tif"
+SOURCE_NAME = "source.json"
 THUMBNAIL_NAME = "thumbnail.jpg"
 PYRAMID_BASENAME = "sheet"
 TILE_PATH = re.compile(r"^(sheet\.dzi|sheet_files/\d{1,2}/\d{1,5}_\d{1,5}\.jpg)$")

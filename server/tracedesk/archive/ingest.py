@@ -8,6 +8,7 @@ fails the files it would have referenced are removed again (the orphan sweep cat
 from __future__ import annotations
 
 import contextlib
+import json
 import tempfile
 import uuid
 from collections.abc import Iterable
@@ -19,7 +20,7 @@ from sqlalchemy import select
 from sqlalchemy.exc import IntegrityError
 from sqlalchemy.orm import Session
 
-from tracedesk.archive.files import NORMALISED_NAME, PYRAMID_BASENAME, THUMBNAIL_NAME
+from tracedesk.archive.files import NORMALISED_NAME, PYRAMID_BASENAME, SOURCE_NAME, THUMBNAIL_NAME
 from tracedesk.archive.schemas import RefusedFile, UploadResult
 from tracedesk.archive.service import SheetWithSource, get_collection
 from tracedesk.archive.views import sheet_read
@@ -27,6 +28,7 @@ from tracedesk.audit.service import Actor, created_fields, record_event
 from tracedesk.db import transaction
 from tracedesk.errors import AppError, Conflict, PayloadTooLarge
 from tracedesk.imaging.errors import UploadRefused
+from tracedesk.imaging.formats import ImageFormat
 from tracedesk.imaging.limits import DecodeLimits
 from tracedesk.imaging.normalise import NormalisedSheet, save_normalised
 from tracedesk.imaging.pages import UploadInfo, examine_upload, iter_sheets
@@ -110,8 +112,21 @@ def _duplicate_error(existing: Sheet) -> Conflict:
     )
 
 
-def _write_derived(sheet: NormalisedSheet, folder: Path) -> None:
-    save_normalised(sheet, folder / NORMALISED_NAME)
+def _write_derived(sheet: NormalisedSheet, folder: Path, *, info: UploadInfo, received: ReceivedFile) -> None:
+    """Thumbnail, tile pyramid, a pointer to the original, and the rendered image of PDF pages only.
+
+    Raster pages are decoded again from the original when their pixels are needed (see
+    ``digitizing/sheet_image.py``); a PDF page's rendering is kept, since another renderer could move pixels.
+    """
+    if info.image_format is ImageFormat.PDF:
+        save_normalised(sheet, folder / NORMALISED_NAME)
+    source = {
+        "sha256": received.sha256,
+        "page_index": sheet.page_index,
+        "filename": received.filename,
+        "media_type": info.media_type,
+    }
+    (folder / SOURCE_NAME).write_text(json.dumps(source), encoding="utf-8")
     save_thumbnail(sheet, folder / THUMBNAIL_NAME)
     save_pyramid(sheet, folder, basename=PYRAMID_BASENAME)
 
@@ -126,7 +141,7 @@ class PreparedPage:
     staging: DerivedStaging
 
 
-def _prepare_pages(store: FileStore, info: UploadInfo) -> list[PreparedPage]:
+def _prepare_pages(store: FileStore, info: UploadInfo, received: ReceivedFile) -> list[PreparedPage]:
     """Decode, normalise and tile every page into staging folders; all of them, or none (the rest discarded)."""
     prepared: list[PreparedPage] = []
     try:
@@ -136,7 +151,7 @@ def _prepare_pages(store: FileStore, info: UploadInfo) -> list[PreparedPage]:
             prepared.append(
                 PreparedPage(key, page.width, page.height, page.dpi[0] if page.dpi else None, page.page_index, staging)
             )
-            _write_derived(page, staging.path)
+            _write_derived(page, staging.path, info=info, received=received)
     except BaseException as exc:
         for item in prepared:
             item.staging.discard()
@@ -249,7 +264,7 @@ def ingest_received(state: AppState, collection_id: int, actor: Actor, received:
         limits=limits,
         pdf_dpi=settings.pdf_dpi,
     )
-    pages = _prepare_pages(state.store, info)
+    pages = _prepare_pages(state.store, info, received)
     try:
         state.store.put_file(received.path, expected_sha256=received.sha256)
         for page in pages:

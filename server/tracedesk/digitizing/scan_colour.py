@@ -48,11 +48,13 @@ class Window:
 def read_window(store: FileStore, derived_key: str, *, box: tuple[int, int, int, int]) -> Window:
     """Pixels of the normalised sheet in ``box`` = (column0, row0, column1, row1), end exclusive, already clipped.
 
-    The normalised image is an uncompressed striped TIFF, so libvips reads only the strips under the box.
+    A stored normalised image (PDF pages) is an uncompressed striped TIFF, so libvips reads only the strips under
+    the box; raster sheets are decoded from their original (and kept in memory for the next pick).
     """
     column0, row0, column1, row1 = box
-    if isinstance(store, LocalFileStore):
-        image = pyvips.Image.new_from_file(str(store.derived_file_path(derived_key, NORMALISED_NAME)), access="random")
+    normalised = store.derived_file_path(derived_key, NORMALISED_NAME) if isinstance(store, LocalFileStore) else None
+    if normalised is not None and normalised.is_file():
+        image = pyvips.Image.new_from_file(str(normalised), access="random")
         block = image.crop(column0, row0, column1 - column0, row1 - row0)
         pixels: NDArray[np.uint8] = np.asarray(block.numpy(), dtype=np.uint8).reshape(
             row1 - row0, column1 - column0, -1
