@@ -227,8 +227,11 @@ def audit() -> None:
 def audit_verify() -> None:
     """Recompute the hash chain; exit 0 when it holds, else 1 and the first broken sequence number."""
     state = _state()
-    with transaction(state.reader) as session:
-        report = verify_chain(session)
+    try:
+        with transaction(state.reader) as session:
+            report = verify_chain(session)
+    finally:
+        state.engine.dispose()  # close the pooled connection now (the command may run inside a test process)
     if report.ok:
         click.echo(f"audit chain intact: {report.events_checked} events verified")
         return

@@ -20,7 +20,7 @@ from tests.reliability.campaign import Campaign, build_campaign, fresh_database_
 from tests.reliability.world import World, build_world
 
 _TESTS: dict[str, figures_report.RunFigures] = {}
-_RUN = {"id": uuid.uuid4().hex, "workers": 1, "worker": "main"}
+_RUN: dict[str, object] = {"id": uuid.uuid4().hex, "workers": 1, "worker": "main", "controller": False}
 
 
 class Figures:
@@ -57,16 +57,18 @@ def pytest_configure(config: pytest.Config) -> None:
     worker_input = getattr(config, "workerinput", None)
     if worker_input is not None:
         _RUN.update(id=worker_input["testrunuid"], workers=worker_input["workercount"], worker=worker_input["workerid"])
+    elif getattr(config.option, "dist", "no") != "no":
+        _RUN["controller"] = True  # pytest-xdist's controller: the workers record and merge the figures
 
 
 def pytest_runtest_logreport(report: pytest.TestReport) -> None:
-    entry = _entry(report.nodeid)
+    entry = None if _RUN["controller"] else _entry(report.nodeid)
     if entry is not None and report.failed:
         entry.failed = True
 
 
 def pytest_sessionfinish(session: pytest.Session) -> None:
-    if session.config.option.collectonly:
+    if session.config.option.collectonly or _RUN["controller"]:
         return
     figures_report.write_part(str(_RUN["id"]), str(_RUN["worker"]), _TESTS)
     figures_report.finish_run(str(_RUN["id"]), int(_RUN["workers"]))

@@ -60,7 +60,13 @@ def test_a_later_edit_voids_the_signature_visibly(signed_in: Clients) -> None:
     etag = tech.get(f"/api/v1/traces/{trace['id']}").headers["etag"]
     vertices = list(trace["vertices"])  # type: ignore[call-overload]
     vertices[2] = pixel_of(12, 3.5)
-    edited = tech.patch(f"/api/v1/traces/{trace['id']}", json={"vertices": vertices}, headers={"If-Match": etag})
+    unexplained = tech.patch(f"/api/v1/traces/{trace['id']}", json={"vertices": vertices}, headers={"If-Match": etag})
+    assert unexplained.status_code == 422 and "reason" in unexplained.json()["detail"]  # approved work: say why
+    edited = tech.patch(
+        f"/api/v1/traces/{trace['id']}",
+        json={"vertices": vertices, "reason": "pen skipped at 12 h"},
+        headers={"If-Match": etag},
+    )
     assert edited.status_code == 200, edited.text
     (signature,) = reviewer.get(f"/api/v1/tasks/{task_id}/signatures").json()
     assert signature["valid"] is False

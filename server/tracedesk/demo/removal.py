@@ -21,7 +21,10 @@ from tracedesk.db import transaction
 from tracedesk.demo.archive_events import record_demo_event
 from tracedesk.demo.people import disable_demo_people
 from tracedesk.models import (
+    BatchRun,
+    BatchRunItem,
     Calibration,
+    ChartSpec,
     Collection,
     CollectionWorkflow,
     Fit,
@@ -94,6 +97,12 @@ def _remove_digitizing(session: Session, sheet_ids: list[int], summary: RemovalS
     _remove(session, Calibration, "calibration", Calibration.sheet_id.in_(sheet_ids), summary, actor)
 
 
+def _remove_batch_runs(session: Session, collection_ids: list[int], summary: RemovalSummary, actor: Actor) -> None:
+    run_ids = list(session.scalars(select(BatchRun.id).where(BatchRun.collection_id.in_(collection_ids))))
+    _remove(session, BatchRunItem, None, BatchRunItem.run_id.in_(run_ids), summary, actor)  # verdicts of a run
+    _remove(session, BatchRun, "batch_run", BatchRun.id.in_(run_ids), summary, actor)
+
+
 def _remove_sources(session: Session, source_ids: set[int], summary: RemovalSummary, actor: Actor) -> list[str]:
     """Originals no remaining sheet uses (a real upload of the same bytes keeps its original)."""
     still_used = set(session.scalars(select(Sheet.source_file_id).where(Sheet.source_file_id.in_(source_ids))))
@@ -110,10 +119,12 @@ def _remove_rows(session: Session, summary: RemovalSummary, actor: Actor) -> tup
     derived = [sheet.derived_key for sheet in sheets]
     source_ids = {sheet.source_file_id for sheet in sheets}
     _remove_workflow(session, sheet_ids, summary, actor)
+    _remove_batch_runs(session, collection_ids, summary, actor)
     _remove_digitizing(session, sheet_ids, summary, actor)
     _remove(session, Sheet, "sheet", Sheet.id.in_(sheet_ids), summary, actor)
     originals = _remove_sources(session, source_ids, summary, actor)
     session.execute(delete(CollectionWorkflow).where(CollectionWorkflow.collection_id.in_(collection_ids)))
+    _remove(session, ChartSpec, "chart_spec", ChartSpec.collection_id.in_(collection_ids), summary, actor)
     _remove(session, Collection, "collection", Collection.id.in_(collection_ids), summary, actor)
     return derived, originals
 

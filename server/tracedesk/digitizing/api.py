@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import hashlib
 from typing import Annotated, Any, Literal
 
 from fastapi import APIRouter, Body, Depends, Query, Request, Response
@@ -28,9 +29,10 @@ from tracedesk.digitizing.schemas import (
     TraceRead,
     TraceUpdate,
 )
-from tracedesk.digitizing.service import mark_work_started, rederive_sheet
+from tracedesk.digitizing.service import mark_work_started, rederive_sheet, require_reason_when_locked
 from tracedesk.digitizing.sheet_image import load_sheet_image
 from tracedesk.errors import Unprocessable
+from tracedesk.exports.recording import record_export
 from tracedesk.jobs.schemas import JobRead
 from tracedesk.jobs.service import job_read, submit_job
 from tracedesk.models import Sheet, Trace
@@ -62,6 +64,7 @@ def put_calibration(
     existing = calibrations.calibration_of(db, sheet_id)
     if existing is not None:
         require_if_match(request, "calibration", sheet_id, existing.version)
+    require_reason_when_locked(sheet, body.reason)
     spec = body.model_dump(exclude={"reason"}, exclude_none=True)
     row, replaced = calibrations.put_calibration(db, sheet, spec, actor=principal.actor, reason=body.reason)
     mark_work_started(db, sheet, actor=principal.actor)
@@ -201,6 +204,7 @@ def update_trace(
 ) -> TraceRead:
     trace = traces.get_trace(db, trace_id)
     require_if_match(request, "trace", trace.id, trace.version)
+    require_reason_when_locked(_sheet(db, trace.sheet_id), body.reason)
     before = trace.version
     traces.update_trace(db, _sheet(db, trace.sheet_id), trace, body, actor=principal.actor)
     if trace.version != before and body.vertices is not None:
@@ -261,7 +265,8 @@ def get_fit(fit_id: int, _: Reader, db: SessionDep, response: Response) -> FitRe
 )
 def resampled_csv(
     trace_id: int,
-    _: Reader,
+    principal: Reader,
+    request: Request,
     db: SessionDep,
     step: Annotated[float | None, Query(gt=0)] = None,
     count: Annotated[int | None, Query(ge=2, le=1_000_000)] = None,
@@ -280,8 +285,19 @@ def resampled_csv(
     )
     text = series.resampled_csv(db, trace, resampled)
     filename = f"trace-{trace.id}-v{trace.version}-resampled.csv"
+    data = text.encode("utf-8")
+    details = {
+        "format": "resampled.csv",
+        "file": filename,
+        "bytes": len(data),
+        "sha256": hashlib.sha256(data).hexdigest(),
+        "method": method,
+        "step": step,
+        "count": count,
+    }
+    record_export(app_state(request), principal.actor, entity_type="trace", entity_id=trace.id, details=details)
     return Response(
-        text.encode("utf-8"),
+        data,
         media_type="text/csv; charset=utf-8",
         headers={"Content-Disposition": f'attachment; filename="{filename}"'},
     )

@@ -7,6 +7,7 @@ from sqlalchemy.orm import Session
 from tracedesk.audit.service import Actor, record_event
 from tracedesk.digitizing.fits import rederive_fits
 from tracedesk.digitizing.traces import traces_of_sheet
+from tracedesk.errors import Unprocessable
 from tracedesk.models import Sheet
 
 
@@ -30,3 +31,14 @@ def mark_work_started(session: Session, sheet: Sheet, *, actor: Actor) -> None:
 def rederive_sheet(session: Session, sheet: Sheet, *, actor: Actor, cause: str) -> int:
     """Refit every fit of every trace on the sheet (samples are always derived on read)."""
     return sum(rederive_fits(session, trace, actor=actor, cause=cause) for trace in traces_of_sheet(session, sheet.id))
+
+
+LOCKED_STATUSES = frozenset({"submitted", "approved"})
+
+
+def require_reason_when_locked(sheet: Sheet, reason: str | None) -> None:
+    """Changing submitted or approved work needs a reason in the audit trail (RELIABILITY.md, 21 CFR 11.10(e))."""
+    if sheet.status in LOCKED_STATUSES and not (reason or "").strip():
+        raise Unprocessable(
+            f"this sheet is {sheet.status}: give a reason for the change (it voids any signature and is recorded)"
+        )

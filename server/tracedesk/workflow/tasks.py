@@ -18,7 +18,7 @@ from tracedesk.audit.service import Actor, created_fields, field_changes, record
 from tracedesk.digitizing.calibrations import calibration_of
 from tracedesk.digitizing.traces import traces_of_sheet
 from tracedesk.errors import Conflict, Unprocessable
-from tracedesk.models import Sheet, Signature, Task, Trace, User
+from tracedesk.models import Sheet, Signature, Task, User
 from tracedesk.models.base import utcnow
 from tracedesk.workflow.access import require_may_take
 from tracedesk.workflow.collection_settings import settings_of
@@ -328,7 +328,3 @@ def _notify_transition(session: Session, task: Task, action: str, *, actor: Acto
         users, message = recipients[action]
         kind = {"submit": "submitted", "return": "returned", "withdraw": "withdrawn", "reopen": "reopened"}[action]
         notify(session, users, kind=kind, message=message, task_id=task.id, skip=actor.id)
-
-
-def own_traces(session: Session, sheet_id: int, user_id: int) -> list[Trace]:
-    return [trace for trace in traces_of_sheet(session, sheet_id) if trace.created_by_id == user_id]
