@@ -26,7 +26,16 @@ if TYPE_CHECKING:
 def _state(*, migrate: bool = True) -> AppState:
     from tracedesk.app import build_state
 
-    return build_state(Settings(), migrate=migrate)
+    state = build_state(Settings(), migrate=migrate)
+    context = click.get_current_context(silent=True)
+    if context is not None:  # close the pool and the job threads when the command ends
+        context.call_on_close(lambda: _close(state))
+    return state
+
+
+def _close(state: AppState) -> None:
+    state.dispatcher.shutdown()
+    state.engine.dispose()
 
 
 def _fail(message: str, code: int = 1) -> None:
@@ -46,6 +55,7 @@ def migrate() -> None:
     settings = Settings()
     engine = build_engine(settings.resolved_database_url)
     upgrade_database(engine)
+    engine.dispose()
     click.echo(f"database at {engine.url.render_as_string(hide_password=True)} is up to date")
 
 
@@ -337,6 +347,9 @@ def move_to_postgres_command(target_url: str) -> None:
         counts = move_to_postgres(source, target, progress=click.echo)
     except BackupError as error:
         _fail(f"move failed: {error}", 1)
+    finally:
+        source.dispose()
+        target.dispose()
     click.echo(f"moved {sum(counts.values())} row(s); audit chain verified on PostgreSQL")
     click.echo(f"now set TRACEDESK_DATABASE_URL={target.url.render_as_string(hide_password=True)}")
 
