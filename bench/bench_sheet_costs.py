@@ -65,7 +65,8 @@ def main() -> None:
         print("| per sheet (7000 x 5000 JPEG scan) | measured |")
         print("|---|---|")
         print(f"| original | {originals / n / 2**20:.1f} MiB |")
-        print(f"| derived files (pyramid, thumbnail; rendered image for PDF pages only) | {derived / n / 2**20:.1f} MiB |")
+        label = "derived files (pyramid, thumbnail; rendered image for PDF pages only)"
+        print(f"| {label} | {derived / n / 2**20:.1f} MiB |")
         print(f"| ingest CPU (all threads) / wall time | {cpu / n:.2f} s / {wall / n:.2f} s |")
         print(f"| database rows added / audit events | {rows / n:.1f} / {events / n:.1f} |")
         print(f"| SQLite file after {n} sheets | {database / 2**10:.0f} KiB |")

@@ -10,12 +10,16 @@ from __future__ import annotations
 
 import errno
 import hashlib
+import os
 import tempfile
+import time
 from collections.abc import Callable
 from dataclasses import dataclass
+from pathlib import Path
 from typing import Any
 
 import pytest
+from click.testing import CliRunner
 from sqlalchemy import event
 from sqlalchemy.exc import OperationalError
 
@@ -34,6 +38,7 @@ from tests.reliability.campaign import (
 from tests.reliability.conftest import Figures
 from tests.reliability.records import CALIBRATION, VERTICES, Records, make_records
 from tracedesk.archive import ingest
+from tracedesk.cli import main as cli_main
 from tracedesk.storage import DerivedStaging, LocalFileStore
 from tracedesk.storage import durable as durable_module
 from tracedesk.storage import local as local_module
@@ -378,3 +383,37 @@ def test_edit_fails_at_one_step_and_changes_nothing(
         problems.append("the audit chain does not verify")
     figures.add(cases=1, failures=int(bool(problems)), data_lost=int(bool(changed)))
     assert not problems, f"{edit.name}: {problems}; {response.text[:200]}"
+
+
+def _sweep_command(campaign: Campaign, monkeypatch: pytest.MonkeyPatch, *options: str) -> tuple[int, str]:
+    monkeypatch.setenv("TRACEDESK_DATABASE_URL", campaign.settings.resolved_database_url)
+    monkeypatch.setenv("TRACEDESK_DATA_DIR", str(campaign.settings.data_dir))
+    monkeypatch.setenv("TRACEDESK_ENVIRONMENT", "test")
+    result = CliRunner().invoke(cli_main, ["sweep", *options])
+    return result.exit_code, result.output
+
+
+def test_sweep_command_keeps_young_orphans_and_removes_old_ones(
+    campaign: Campaign, box: int, figures: Figures, monkeypatch: pytest.MonkeyPatch, tmp_path: Path
+) -> None:
+    """`tracedesk sweep`: a dry run removes nothing; the grace period protects files younger than it."""
+    orphan = tmp_path / "orphan.bin"
+    orphan.write_bytes(b"no row references these bytes")
+    key = campaign.state.store.put_file(orphan).key
+    path = campaign.state.store.path_for(key)
+    incoming = campaign.settings.data_dir / "incoming" / "upload-left-by-a-crash"
+    incoming.parent.mkdir(parents=True, exist_ok=True)
+    incoming.write_bytes(b"half an upload")
+    outcomes = {}
+    outcomes["dry run exits 0"] = _sweep_command(campaign, monkeypatch, "--grace-hours", "0", "--dry-run")[0] == 0
+    outcomes["dry run keeps the orphan"] = path.exists()
+    outcomes["young orphan kept"] = _sweep_command(campaign, monkeypatch)[0] == 0 and path.exists()
+    two_days_ago = time.time() - 48 * 3600
+    for old in (path, incoming):
+        os.utime(old, (two_days_ago, two_days_ago))
+    code, output = _sweep_command(campaign, monkeypatch)
+    outcomes["old orphan removed"] = code == 0 and not path.exists() and "removed 1 original" in output
+    outcomes["stale incoming upload removed"] = not incoming.exists()
+    outcomes["referenced files kept"] = missing_files(campaign.state) == []
+    figures.add(cases=len(outcomes), failures=sum(not ok for ok in outcomes.values()))
+    assert all(outcomes.values()), outcomes
