@@ -12,6 +12,7 @@ import hashlib
 import os
 import shutil
 import uuid
+from collections.abc import Callable
 from concurrent.futures import ThreadPoolExecutor
 from datetime import datetime
 from pathlib import Path
@@ -19,6 +20,8 @@ from typing import IO
 
 from tracedesk.storage.errors import StorageError, StorageFull
 from tracedesk.storage.hashing import CHUNK_BYTES
+from tracedesk.storage.names import check_derived_name
+from tracedesk.storage.protocol import DerivedStaging
 
 _FULL_ERRNOS = frozenset({errno.ENOSPC, errno.EDQUOT})
 TEMP_PREFIX = "incoming-"
@@ -144,3 +147,20 @@ def remove_entries_older_than(folder: Path, *, older_than: datetime) -> list[str
             continue  # removed by someone else meanwhile
         removed.append(entry.name)
     return removed
+
+
+def open_staging(parent: Path, name: str, *, publish: Callable[[str, Path], None]) -> DerivedStaging:
+    """A new private staging folder under ``parent`` for derived folder ``name``; ``publish(name, path)`` makes
+    it visible, discarding removes it. Shared by every store so staging behaves the same everywhere."""
+    check_derived_name(name)
+    staging_path = new_temp_path(parent, suffix=".derived")
+    try:
+        staging_path.mkdir()
+    except OSError as exc:
+        raise storage_error_from(exc, action="creating a staging folder") from exc
+    return DerivedStaging(
+        name,
+        staging_path,
+        publish=lambda: publish(name, staging_path),
+        discard=lambda: shutil.rmtree(staging_path, ignore_errors=True),
+    )

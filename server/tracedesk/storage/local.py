@@ -26,6 +26,7 @@ from tracedesk.storage.durable import (
     fsync_tree,
     make_directories,
     new_temp_path,
+    open_staging,
     remove_entries_older_than,
     storage_error_from,
     write_temp_copy,
@@ -210,18 +211,7 @@ class LocalFileStore:
 
     def stage_derived(self, name: str) -> DerivedStaging:
         """Start building derived folder `name` in ``tmp/``; publish or discard through the returned object."""
-        check_derived_name(name)
-        staging_path = new_temp_path(self.temp_dir, suffix=".derived")
-        try:
-            staging_path.mkdir()
-        except OSError as exc:
-            raise storage_error_from(exc, action="creating a staging folder") from exc
-        return DerivedStaging(
-            name,
-            staging_path,
-            publish=lambda: self._publish(name, staging_path),
-            discard=lambda: shutil.rmtree(staging_path, ignore_errors=True),
-        )
+        return open_staging(self.temp_dir, name, publish=self._publish)
 
     def _publish(self, name: str, staging_path: Path) -> None:
         final = self.derived_path(name)

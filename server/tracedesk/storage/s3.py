@@ -28,7 +28,7 @@ from typing import IO, Any
 import boto3
 from botocore.exceptions import BotoCoreError, ClientError
 
-from tracedesk.storage.durable import new_temp_path, remove_entries_older_than, storage_error_from
+from tracedesk.storage.durable import new_temp_path, open_staging, remove_entries_older_than, storage_error_from
 from tracedesk.storage.errors import (
     ChecksumMismatch,
     StorageError,
@@ -275,18 +275,7 @@ class S3FileStore:
 
     def stage_derived(self, name: str) -> DerivedStaging:
         """Start building derived folder `name` in a local staging folder; publishing uploads it."""
-        check_derived_name(name)
-        staging_path = new_temp_path(self.staging_dir, suffix=".derived")
-        try:
-            staging_path.mkdir()
-        except OSError as exc:
-            raise storage_error_from(exc, action="creating a staging folder") from exc
-        return DerivedStaging(
-            name,
-            staging_path,
-            publish=lambda: self._publish(name, staging_path),
-            discard=lambda: shutil.rmtree(staging_path, ignore_errors=True),
-        )
+        return open_staging(self.staging_dir, name, publish=self._publish)
 
     def _publish(self, name: str, staging_path: Path) -> None:
         prefix = self._derived_prefix(name)
