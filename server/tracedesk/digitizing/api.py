@@ -7,6 +7,7 @@ from typing import Annotated, Any, Literal
 
 from fastapi import APIRouter, Body, Depends, Query, Request, Response
 from fastapi.responses import JSONResponse, PlainTextResponse
+from sqlalchemy.orm import Session
 from starlette.concurrency import run_in_threadpool
 
 from tracedesk.accounts.permissions import Permission
@@ -37,7 +38,7 @@ from tracedesk.jobs.schemas import JobRead
 from tracedesk.jobs.service import job_read, submit_job
 from tracedesk.models import Sheet, Trace
 from tracedesk.web.conditional import require_if_match, set_etag
-from tracedesk.web.deps import Principal, SessionDep, requires
+from tracedesk.web.deps import Principal, SessionDep, requires, write_then_read
 from tracedesk.web.state import app_state
 
 router = APIRouter(prefix="/api/v1", tags=["digitizing"])
@@ -49,10 +50,6 @@ PERIODS = {"hour": 1.0, "day": 24.0, "week": 168.0}
 
 def _sheet(db: SessionDep, sheet_id: int) -> Sheet:
     return get_sheet(db, sheet_id).sheet
-
-
-def _trace_read(db: SessionDep, trace: Trace) -> TraceRead:
-    return traces.trace_read(db, trace, (calibrations.x_unit_of(calibrations.calibration_of(db, trace.sheet_id)), ""))
 
 
 @router.put("/sheets/{sheet_id}/calibration", response_model=CalibrationRead, responses={201: {}, 412: {}, 428: {}})
@@ -131,7 +128,7 @@ def create_trace(
     trace = traces.create_manual_trace(db, sheet, body, actor=principal.actor)
     mark_work_started(db, sheet, actor=principal.actor)
     set_etag(response, "trace", trace.id, trace.version)
-    return _trace_read(db, trace)
+    return traces.trace_read(db, trace)
 
 
 def _auto_trace(request: Request, sheet_id: int, body: AutoTraceRequest, principal: Principal) -> TraceRead:
@@ -148,7 +145,7 @@ def _auto_trace(request: Request, sheet_id: int, body: AutoTraceRequest, princip
         trace = traces.store_auto_trace(session, sheet, body, result, actor=principal.actor)
         mark_work_started(session, sheet, actor=principal.actor)
         session.flush()
-        return _trace_read(session, trace)
+        return traces.trace_read(session, trace)
 
 
 @router.post(
@@ -188,29 +185,40 @@ def _queue_auto_trace(request: Request, sheet_id: int, body: AutoTraceRequest, p
 @router.get("/sheets/{sheet_id}/traces", response_model=list[TraceRead])
 def list_traces(sheet_id: int, _: Reader, db: SessionDep) -> list[TraceRead]:
     _sheet(db, sheet_id)
-    return [_trace_read(db, trace) for trace in traces.traces_of_sheet(db, sheet_id)]
+    return [traces.trace_read(db, trace) for trace in traces.traces_of_sheet(db, sheet_id)]
 
 
 @router.get("/traces/{trace_id}", response_model=TraceRead)
 def get_trace(trace_id: int, _: Reader, db: SessionDep, response: Response) -> TraceRead:
     trace = traces.get_trace(db, trace_id)
     set_etag(response, "trace", trace.id, trace.version)
-    return _trace_read(db, trace)
+    return traces.trace_read(db, trace)
 
 
 @router.patch("/traces/{trace_id}", response_model=TraceRead)
-def update_trace(
-    trace_id: int, body: TraceUpdate, principal: Digitizer, request: Request, db: SessionDep, response: Response
+async def update_trace(
+    trace_id: int, body: TraceUpdate, principal: Digitizer, request: Request, response: Response
 ) -> TraceRead:
-    trace = traces.get_trace(db, trace_id)
-    require_if_match(request, "trace", trace.id, trace.version)
-    require_reason_when_locked(_sheet(db, trace.sheet_id), body.reason)
-    before = trace.version
-    traces.update_trace(db, _sheet(db, trace.sheet_id), trace, body, actor=principal.actor)
-    if trace.version != before and body.vertices is not None:
-        fits.rederive_fits(db, trace, actor=principal.actor, cause=f"trace changed to version {trace.version}")
-    set_etag(response, "trace", trace.id, trace.version)
-    return _trace_read(db, trace)
+    """Save an edit (the workbench's autosave). The change commits first; the answer (with the samples and
+    uncertainties in chart units) is computed afterwards, outside the writer lock."""
+
+    def write(db: Session) -> None:
+        trace = traces.get_trace(db, trace_id)
+        require_if_match(request, "trace", trace.id, trace.version)
+        sheet = _sheet(db, trace.sheet_id)
+        require_reason_when_locked(sheet, body.reason)
+        before = trace.version
+        traces.update_trace(db, sheet, trace, body, actor=principal.actor)
+        if trace.version != before and body.vertices is not None:
+            fits.rederive_fits(db, trace, actor=principal.actor, cause=f"trace changed to version {trace.version}")
+
+    def read(db: Session, _: None) -> TraceRead:
+        # Not get_trace: the edit is saved even if someone withdraws the trace in between; answer with it.
+        trace = db.get_one(Trace, trace_id)
+        set_etag(response, "trace", trace.id, trace.version)
+        return traces.trace_read(db, trace)
+
+    return await write_then_read(request, write, read)
 
 
 @router.delete("/traces/{trace_id}", status_code=204)

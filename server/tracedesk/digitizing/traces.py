@@ -12,10 +12,10 @@ from sqlalchemy import select
 from sqlalchemy.orm import Session
 
 from tracedesk.audit.service import Actor, created_fields, record_event
-from tracedesk.digitizing.calibrations import calibration_of, mapping_of, require_calibration
+from tracedesk.digitizing.calibrations import calibration_of, mapping_of, require_calibration, x_unit_of
 from tracedesk.digitizing.schemas import AutoRegion, AutoTraceRequest, TraceCreate, TraceRead, TraceUpdate
 from tracedesk.errors import NotFound, Unprocessable
-from tracedesk.models import Sheet, Trace
+from tracedesk.models import Calibration, Sheet, Trace
 from tracedesk.models.base import utcnow
 from tracedesk.science.trace_regions import AnnulusRegion, BoxRegion, PolygonRegion
 from tracedesk.science.tracing import TraceResult, trace_pen
@@ -239,9 +239,12 @@ def trace_pixels(trace: Trace) -> FloatArray:
     return np.asarray(json.loads(trace.vertices), dtype=np.float64).reshape(-1, 2)
 
 
-def samples_of(session: Session, trace: Trace) -> tuple[FloatArray, FloatArray, int]:
-    """(values (n, 2), uncertainty (n, 2), calibration version) of a trace through the sheet's calibration."""
-    row = require_calibration(session, trace.sheet_id)
+def samples_of(session: Session, trace: Trace, row: Calibration | None = None) -> tuple[FloatArray, FloatArray, int]:
+    """(values (n, 2), uncertainty (n, 2), calibration version) of a trace through the sheet's calibration.
+
+    ``row`` is the sheet's calibration when the caller has already read it.
+    """
+    row = row if row is not None else require_calibration(session, trace.sheet_id)
     mapping = mapping_of(row)
     pixels = trace_pixels(trace)
     if len(pixels) == 0:
@@ -252,17 +255,22 @@ def samples_of(session: Session, trace: Trace) -> tuple[FloatArray, FloatArray, 
 
 
 def _json_rows(array: FloatArray) -> list[list[float | None]]:
-    return [[float(v) if np.isfinite(v) else None for v in row] for row in array]
+    """Rows as JSON-ready lists; non-finite numbers (a pixel outside a log axis' domain, say) become None."""
+    rows: list[list[float | None]] = array.tolist()
+    for i, j in zip(*np.nonzero(~np.isfinite(array)), strict=True):
+        rows[int(i)][int(j)] = None
+    return rows
 
 
-def trace_read(session: Session, trace: Trace, axes_units: tuple[str, str] = ("", "")) -> TraceRead:
+def trace_read(session: Session, trace: Trace) -> TraceRead:
+    """The trace as the API shows it, with its samples and uncertainties in chart units when calibrated."""
     row = calibration_of(session, trace.sheet_id)
     samples = uncertainty = None
     calibration_version = None
     if row is not None:
-        values, sigma, calibration_version = samples_of(session, trace)
+        values, sigma, calibration_version = samples_of(session, trace, row)
         samples = _json_rows(values)
-        uncertainty = [[v if v is not None else float("nan") for v in pair] for pair in _json_rows(sigma)]
+        uncertainty = np.where(np.isfinite(sigma), sigma, np.nan).tolist()
     return TraceRead(
         id=trace.id,
         sheet_id=trace.sheet_id,
@@ -278,8 +286,8 @@ def trace_read(session: Session, trace: Trace, axes_units: tuple[str, str] = (""
         samples=samples,
         uncertainty=uncertainty,
         calibration_version=calibration_version,
-        x_unit=axes_units[0],
-        y_unit=axes_units[1] or trace.unit,
+        x_unit=x_unit_of(row),
+        y_unit=trace.unit,
         created_at=trace.created_at,
         updated_at=trace.updated_at,
     )

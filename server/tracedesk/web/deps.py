@@ -5,16 +5,17 @@ from __future__ import annotations
 import hmac
 from collections.abc import AsyncIterator, Callable, Coroutine
 from dataclasses import dataclass
-from typing import Annotated, Any
+from typing import Annotated, Any, TypeVar
 
 from fastapi import Depends, Request
-from sqlalchemy.orm import Session
+from sqlalchemy.exc import DBAPIError
+from sqlalchemy.orm import Session, sessionmaker
 from starlette.concurrency import run_in_threadpool
 
 from tracedesk.accounts import service as accounts
 from tracedesk.accounts.permissions import Permission, role_allows
 from tracedesk.audit.service import Actor
-from tracedesk.db import acquire_without_a_thread, transaction, writer_gate
+from tracedesk.db import SERIALIZATION_RETRIES, acquire_without_a_thread, is_retryable, transaction, writer_gate
 from tracedesk.errors import Forbidden, NotAuthenticated
 from tracedesk.models import User, WebSession
 from tracedesk.web.state import app_state
@@ -23,6 +24,8 @@ SAFE_METHODS = frozenset({"GET", "HEAD", "OPTIONS"})
 SESSION_COOKIE = "tracedesk_session"
 CSRF_HEADER = "x-csrf-token"
 CSRF_FIELD = "csrf_token"
+W = TypeVar("W")
+R = TypeVar("R")
 
 
 async def get_db(request: Request) -> AsyncIterator[Session]:
@@ -49,6 +52,45 @@ async def get_db(request: Request) -> AsyncIterator[Session]:
     finally:
         if gate is not None:
             gate.release()
+
+
+def _unit_of_work(factory: sessionmaker[Session], work: Callable[[Session], W]) -> W:
+    """Run ``work`` in one transaction of ``factory`` (the caller holds any writer lock): commit or roll back."""
+    session = factory()
+    try:
+        result = work(session)
+        session.commit()
+        return result
+    except BaseException:
+        session.rollback()
+        raise
+    finally:
+        session.close()
+
+
+async def write_then_read(request: Request, write: Callable[[Session], W], read: Callable[[Session, W], R]) -> R:
+    """Commit ``write`` in a short transaction of its own, then build the answer with ``read`` in a read one.
+
+    Hot edits (autosaves) use this instead of ``SessionDep``: the SQLite writer lock and the PostgreSQL audit
+    chain head are held only while the change itself is made, not while the answer's derived numbers (samples,
+    uncertainties) are computed and serialised. A serialization failure or deadlock reported by the database
+    runs ``write`` again from scratch (up to ``SERIALIZATION_RETRIES`` times); its effects are all or nothing.
+    """
+    state = app_state(request)
+    gate = writer_gate(state.writer)
+    for attempt in range(SERIALIZATION_RETRIES):
+        if gate is not None:
+            await acquire_without_a_thread(gate)
+        try:
+            written = await run_in_threadpool(_unit_of_work, state.writer, write)
+            break
+        except DBAPIError as error:
+            if attempt + 1 == SERIALIZATION_RETRIES or not is_retryable(error):
+                raise
+        finally:
+            if gate is not None:
+                gate.release()
+    return await run_in_threadpool(_unit_of_work, state.reader, lambda session: read(session, written))
 
 
 SessionDep = Annotated[Session, Depends(get_db, scope="function")]

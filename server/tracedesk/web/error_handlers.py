@@ -7,10 +7,11 @@ from urllib.parse import quote
 
 from fastapi import FastAPI, Request
 from fastapi.responses import JSONResponse, RedirectResponse, Response
-from sqlalchemy.exc import DataError
+from sqlalchemy.exc import DataError, DBAPIError
 from sqlalchemy.orm.exc import StaleDataError
 from starlette.exceptions import HTTPException as StarletteHTTPException
 
+from tracedesk.db import is_retryable
 from tracedesk.errors import AppError, Conflict, NotAuthenticated, PreconditionFailed, Unprocessable
 from tracedesk.science.errors import ScienceInputError
 from tracedesk.storage import StorageError
@@ -63,6 +64,18 @@ async def handle_out_of_range(request: Request, error: Exception) -> Response:
     return await handle_app_error(request, Unprocessable(message))
 
 
+async def handle_database_error(request: Request, error: Exception) -> Response:
+    """A serialization failure, deadlock or lock time-out that outlived the retries: nothing was stored, and the
+    client may simply send the request again. Anything else is a server fault and propagates (500, logged)."""
+    assert isinstance(error, DBAPIError)
+    if not is_retryable(error):
+        raise error
+    busy = AppError.with_status(503, "the archive is busy with other changes; nothing was saved, try again", code="busy")
+    answer = await handle_app_error(request, busy)
+    answer.headers["Retry-After"] = "1"
+    return answer
+
+
 async def handle_http_error(request: Request, error: Exception) -> Response:
     assert isinstance(error, StarletteHTTPException)
     if _wants_page(request):
@@ -77,6 +90,7 @@ def install_error_handlers(app: FastAPI) -> None:
     app.add_exception_handler(StorageError, handle_storage_error)
     app.add_exception_handler(OverflowError, handle_out_of_range)
     app.add_exception_handler(DataError, handle_out_of_range)
+    app.add_exception_handler(DBAPIError, handle_database_error)
     document_error_shape(app)
 
 

@@ -4,6 +4,7 @@
 import { ApiError, request } from "./api.js";
 
 const DELAY_MS = 600;
+const RETRY_BUSY_MS = 1500;
 
 export function createAutosave({ store, status, conflicts, sheetId, history, onSaved }) {
   const timers = new Map();
@@ -55,6 +56,8 @@ export function createAutosave({ store, status, conflicts, sheetId, history, onS
       if (!(error instanceof ApiError)) throw error;
       if (error.status === 412) { store.flagConflict(id); offerChoice(entry); return; }
       entry.saveError = error.message;
+      // 503: the archive was too busy and stored nothing; the edits stay pending and go again shortly.
+      if (error.status === 503) schedule(id, RETRY_BUSY_MS);
     }
   }
 
