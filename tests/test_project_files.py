@@ -46,3 +46,15 @@ def test_science_layer_contract_covers_every_other_package() -> None:
     packages = {f"tracedesk.{info.name}" for info in pkgutil.iter_modules(tracedesk.__path__) if info.ispkg}
     missing = packages - forbidden - {"tracedesk.science"}
     assert not missing, f"add {sorted(missing)} to the science contract's forbidden_modules"
+
+
+def test_every_picture_the_readme_shows_exists_and_the_tour_stays_small() -> None:
+    """Relative image links resolve to files; the demo tour's pictures keep under 250 KB each (their budget)."""
+    readme = (ROOT / "README.md").read_text()
+    pictures = re.findall(r"!\[[^\]]*\]\(([^)\s]+)\)", readme)
+    tour = [path for path in pictures if path.startswith("docs/tour/")]
+    assert tour, "the README shows no picture of the demo tour"
+    missing = [path for path in pictures if not (ROOT / path).is_file()]
+    assert not missing, f"the README links pictures that do not exist: {missing}"
+    large = [path for path in tour if (ROOT / path).stat().st_size >= 250_000]
+    assert not large, f"regenerate these smaller (tests/browser/test_demo_tour.py): {large}"

@@ -109,10 +109,10 @@ def shoot(page: Page, name: str) -> None:
     page.screenshot(path=str(SCREENSHOTS / f"{name}.png"))
 
 
-def log_in(page: Page, username: str = "tom") -> None:
+def log_in(page: Page, username: str = "tom", password: str = PASSWORD) -> None:
     page.goto("/login")
     page.get_by_label("User name").fill(username)
-    page.get_by_label("Password").fill(PASSWORD)
+    page.get_by_label("Password").fill(password)
     page.get_by_role("button", name="Sign in").click()
     page.wait_for_url(lambda url: "/login" not in url)
     page.wait_for_selector('meta[name="csrf-token"]', state="attached")
