@@ -17,9 +17,9 @@ from fastapi.responses import HTMLResponse, Response
 from tracedesk.accounts.permissions import Permission
 from tracedesk.archive import service as archive
 from tracedesk.archive.views import sheet_read
-from tracedesk.digitizing import calibrations, fits, traces
+from tracedesk.digitizing import calibrations, chart_specs, fits, traces
 from tracedesk.digitizing.schemas import CalibrationRead, FitRead
-from tracedesk.models import Trace
+from tracedesk.models import ChartSpec, Trace
 from tracedesk.web.deps import Principal, SessionDep, requires
 from tracedesk.web.templating import render
 
@@ -58,6 +58,29 @@ def _summary(db: SessionDep, trace: Trace) -> TraceSummary:
     )
 
 
+@dataclass(frozen=True)
+class SpecChoice:
+    """A chart spec offered in the Calibrate panel, without its (possibly long) template."""
+
+    id: int
+    name: str
+    kind: str
+    shared: bool
+    has_geometry: bool
+    has_template: bool
+
+
+def _spec_choice(spec: ChartSpec) -> SpecChoice:
+    return SpecChoice(
+        id=spec.id,
+        name=spec.name,
+        kind=spec.kind,
+        shared=spec.collection_id is None,
+        has_geometry=bool(spec.geometry),
+        has_template=bool(spec.calibration_template),
+    )
+
+
 def _calibration(db: SessionDep, sheet_id: int) -> CalibrationRead | None:
     row = calibrations.calibration_of(db, sheet_id)
     return calibrations.calibration_read(row) if row is not None else None
@@ -73,6 +96,10 @@ def workbench_page(request: Request, sheet_id: int, principal: Reader, db: Sessi
         "collection": archive.get_collection(db, item.sheet.collection_id),
         "calibration": calibration,
         "traces": [_summary(db, trace) for trace in traces.traces_of_sheet(db, sheet_id)],
+        # The collection's own chart specs and the shared ones.
+        "chart_specs": [
+            _spec_choice(spec) for spec in chart_specs.list_chart_specs(db, collection_id=item.sheet.collection_id)
+        ],
         "can_digitize": principal.can(Permission.DIGITIZE),
         "csv_rows": DEFAULT_CSV_ROWS,
         # The modules start from this instead of asking for a calibration that may not exist yet.

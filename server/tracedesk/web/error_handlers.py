@@ -70,7 +70,9 @@ async def handle_database_error(request: Request, error: Exception) -> Response:
     assert isinstance(error, DBAPIError)
     if not is_retryable(error):
         raise error
-    busy = AppError.with_status(503, "the archive is busy with other changes; nothing was saved, try again", code="busy")
+    busy = AppError.with_status(
+        503, "the archive is busy with other changes; nothing was saved, try again", code="busy"
+    )
     answer = await handle_app_error(request, busy)
     answer.headers["Retry-After"] = "1"
     return answer

@@ -6,6 +6,8 @@ import { draftGeometry, formFromSpec, specFromForm } from "./calibration-form.js
 import { bindGeometryPicks } from "./calibration-geometry.js";
 import { calibrationLayer, RESIDUAL_EXAGGERATION } from "./calibration-layer.js";
 import { createPointsTable } from "./calibration-points.js";
+import { createSpecPicker } from "./chart-spec-picker.js";
+import { bindSpecSave } from "./chart-spec-save.js";
 
 const PREVIEW_DELAY_MS = 250;
 const TRANSFORM_WORDS = {
@@ -131,9 +133,13 @@ export function createCalibratePanel(panel, wb) {
     wb.overlay.requestDraw();
   }
 
+  function markDraft() {
+    state.textContent = saved ? "Draft differs from the saved calibration" : "Not saved yet";
+  }
+
   function schedulePreview() {
     clearTimeout(timer);
-    state.textContent = saved ? "Draft differs from the saved calibration" : "Not saved yet";
+    markDraft();
     timer = setTimeout(runPreview, PREVIEW_DELAY_MS);
   }
 
@@ -185,8 +191,13 @@ export function createCalibratePanel(panel, wb) {
     });
   }
 
-  function load(spec) {
-    table.setPoints(formFromSpec(form, spec));
+  // Fill the form from a calibration (or the part of one a chart spec gives); the chart start and the placed
+  // points can be kept, since they belong to this sheet.
+  function load(spec, { keepPoints = false, keepStart = false } = {}) {
+    const start = form.start.value;
+    const points = formFromSpec(form, spec);
+    if (keepStart) form.start.value = start;
+    if (!keepPoints) table.setPoints(points);
     showKind();
     runPreview();
   }
@@ -222,7 +233,7 @@ export function createCalibratePanel(panel, wb) {
     const [u, v] = wb.viewer.toImage(t, wb.viewer.element.clientWidth / 2, wb.viewer.element.clientHeight / 2);
     table.addPoint(u, v);
   });
-  form.addEventListener("input", (event) => { if (!event.target.closest("[data-points-table]")) schedulePreview(); });
+  form.addEventListener("input", (event) => { if (!event.target.closest("[data-points-table], [data-no-draft]")) schedulePreview(); });
   form.kind.addEventListener("change", () => { showKind(); schedulePreview(); });
   form.addEventListener("submit", save);
   bindGeometryPicks({ form, picker: wb.picker, onChange: schedulePreview, say: (text, kind) => renderReport(text, kind) });
@@ -231,6 +242,23 @@ export function createCalibratePanel(panel, wb) {
   showKind();
   if (saved) { load(saved.spec); describeSaved(); } else { renderReport("To fit: place at least two control points and type their values."); }
   offerTemplates();
+  const drafts = {
+    form,
+    load: (spec, options) => { load(spec, options); markDraft(); },
+    say: renderReport,
+    changed: () => { showKind(); schedulePreview(); },
+    draft: () => specFromForm(form, table.points),
+    // What the form holds that a chart spec may not say (units, the mapping model).
+    current: () => ({
+      xUnit: form.x_unit.value.trim(),
+      yUnit: form.y_unit.value.trim(),
+      valueUnit: form.value_unit.value.trim(),
+      transform: form.transform.value,
+    }),
+    focusSave: () => panel.querySelector("[data-cal-save]").focus(),
+  };
+  const specs = createSpecPicker(panel, wb, drafts);
+  bindSpecSave(panel, wb, drafts, specs);
 
   return {
     togglePlacing,

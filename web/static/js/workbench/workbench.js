@@ -185,6 +185,12 @@ function exposeHook(wb) {
       return { median_ms: times[Math.floor(times.length / 2)], max_ms: times[times.length - 1], repeats, vertices };
     },
     traces: () => wb.store.all().map((entry) => ({ id: entry.data.id, version: entry.data.version, vertices: entry.vertices })),
+    // The view for the pan/zoom measurement: screen px per image px, and whether every tile in view is drawn.
+    view() {
+      const item = wb.viewer.osd.world.getItemAt(0);
+      const t = wb.viewer.transform();
+      return { scale: t ? t.scale : null, tilesLoaded: Boolean(item && item.getFullyLoaded()), animating: wb.viewer.osd.isAnimating() };
+    },
   };
 }
 
