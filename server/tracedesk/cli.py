@@ -262,6 +262,8 @@ def sweep(grace_hours: float, dry_run: bool, allow_empty: bool) -> None:
     """Remove stored files no database row references (left by crashes, failed uploads, removed records)."""
     from datetime import UTC, datetime, timedelta
 
+    from tracedesk.archive.ingest_job import pending_ingest_keys
+    from tracedesk.exports.bundle_jobs import kept_bundle_keys
     from tracedesk.models import Sheet, SourceFile
     from tracedesk.storage import sweep_orphans
     from tracedesk.storage.durable import remove_entries_older_than
@@ -270,7 +272,8 @@ def sweep(grace_hours: float, dry_run: bool, allow_empty: bool) -> None:
     grace = timedelta(hours=grace_hours)
     try:
         with transaction(state.reader) as session:
-            keys = set(session.scalars(select(SourceFile.sha256)))
+            keys = set(session.scalars(select(SourceFile.sha256))) | kept_bundle_keys(session)
+            keys |= pending_ingest_keys(session)  # originals stored for ingest jobs that have not run yet
             derived = set(session.scalars(select(Sheet.derived_key)))
         if not (keys or derived or allow_empty):
             _fail("the database references no stored file: is TRACEDESK_DATABASE_URL right? (--allow-empty)", 2)

@@ -23,7 +23,7 @@ from tracedesk.config import Settings
 from tracedesk.db import transaction
 
 PASSWORD = "correct horse battery staple"
-USERS = {"tom": "technician", "tess": "technician", "vic": "viewer"}
+USERS = {"tom": "technician", "tess": "technician", "vic": "viewer", "rita": "reviewer", "ada": "admin"}
 
 
 @dataclass(frozen=True)
@@ -54,7 +54,7 @@ def _wait_until_up(url: str, server: uvicorn.Server, *, timeout_s: float = 20.0)
 
 @contextmanager
 def running_server(data_dir: Path) -> Iterator[LiveServer]:
-    """Start Tracedesk with three accounts (see USERS, all with PASSWORD) and stop it afterwards."""
+    """Start Tracedesk with the accounts in USERS (all with PASSWORD) and stop it afterwards."""
     settings = Settings(
         environment="test",
         data_dir=data_dir,

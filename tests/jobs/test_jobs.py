@@ -18,6 +18,7 @@ from fastapi.testclient import TestClient
 from sqlalchemy import func, select, update
 
 from tests.digitizing.test_digitizing_api import PEN, _calibrate
+from tests.jobs.rq_queue import rq_settings, worker_env
 from tracedesk.audit.service import SYSTEM, verify_chain
 from tracedesk.db import transaction
 from tracedesk.jobs.execute import recover_stale_jobs, run_job
@@ -120,29 +121,12 @@ def test_rq_worker_killed_mid_job_is_retried_and_applied_once(
     tmp_path: Path, redis_url: str, database_url: str
 ) -> None:
     from tracedesk.app import build_state
-    from tracedesk.config import Settings
     from tracedesk.migrate import upgrade_database
 
-    queue = f"test-{tmp_path.name}"[:60]  # a queue of its own: parallel test workers share the Redis database
-    settings = Settings(
-        environment="test",
-        data_dir=tmp_path / "data",
-        database_url=database_url,
-        job_backend="rq",
-        redis_url=redis_url,
-        rq_queue=queue,
-    )
+    settings = rq_settings(tmp_path, database_url, redis_url)
     state = build_state(settings, migrate=False)
     upgrade_database(state.engine)
-    env = {
-        **os.environ,
-        "TRACEDESK_DATA_DIR": str(settings.data_dir),
-        "TRACEDESK_DATABASE_URL": database_url,
-        "TRACEDESK_JOB_BACKEND": "rq",
-        "TRACEDESK_REDIS_URL": redis_url,
-        "TRACEDESK_ENVIRONMENT": "test",
-        "TRACEDESK_RQ_QUEUE": queue,
-    }
+    env = worker_env(settings)
     job = submit_job(state, "probe", {"seconds": 4}, actor=SYSTEM)
     worker = _worker(env, burst=False)
     try:

@@ -2,18 +2,20 @@
 
 from __future__ import annotations
 
-from typing import Annotated
+from typing import Annotated, Any
 
 from fastapi import APIRouter, Depends, File, Query, Request, Response, UploadFile
 from fastapi.responses import JSONResponse
 from starlette.concurrency import run_in_threadpool
 
 from tracedesk.accounts.permissions import Permission
-from tracedesk.archive import files, ingest, service
+from tracedesk.archive import files, ingest, ingest_job, service
 from tracedesk.archive.schemas import (
     CollectionCreate,
     CollectionRead,
     CollectionUpdate,
+    QueuedUploadResult,
+    RefusedFile,
     SheetPage,
     SheetRead,
     SheetUpdate,
@@ -70,25 +72,34 @@ def update_collection(
     "/collections/{collection_id}/sheets",
     response_model=UploadResult,
     status_code=201,
-    responses={409: {}, 413: {}, 415: {}, 422: {}},
+    responses={202: {"model": QueuedUploadResult}, 409: {}, 413: {}, 415: {}, 422: {}},
 )
 async def upload_sheets(
     collection_id: int,
     principal: Uploader,
     request: Request,
     files_in: Annotated[list[UploadFile], File(alias="files")],
+    background: Annotated[bool, Query(description="queue decoding and tiling as jobs; answer 202 at once")] = False,
 ) -> Response:
     """Upload scans (parts named ``files``). Each file is accepted or refused on its own, with a reason.
 
     Decoding and tiling happen before any database write, so a refused file leaves no row and no stored file.
     When nothing is accepted, the answer carries the status of the first refusal (e.g. 415, 413, 409).
+    With ``background=true`` the answer (202) comes once each original is stored: it lists one job per file
+    (``/api/v1/jobs/{id}`` shows its progress; its result names the new sheets, its error why a file was refused).
     """
     state = app_state(request)
+    if background:
+        queued = await run_in_threadpool(ingest_job.queue_uploads, state, collection_id, principal.actor, files_in)
+        return _upload_answer(queued.model_dump(mode="json"), bool(queued.queued), queued.refused, 202)
     result = await run_in_threadpool(ingest.ingest_uploads, state, collection_id, principal.actor, files_in)
-    if not result.sheets and result.refused:
-        status = result.refused[0].status
-        return JSONResponse({"detail": result.refused[0].reason, **result.model_dump(mode="json")}, status_code=status)
-    return JSONResponse(result.model_dump(mode="json"), status_code=201)
+    return _upload_answer(result.model_dump(mode="json"), bool(result.sheets), result.refused, 201)
+
+
+def _upload_answer(body: dict[str, Any], accepted: bool, refused: list[RefusedFile], status: int) -> JSONResponse:
+    if not accepted and refused:
+        return JSONResponse({"detail": refused[0].reason, **body}, status_code=refused[0].status)
+    return JSONResponse(body, status_code=status)
 
 
 @router.get("/sheets", response_model=SheetPage)

@@ -11,10 +11,10 @@ import contextlib
 import json
 import tempfile
 import uuid
-from collections.abc import Iterable
+from collections.abc import Callable, Iterable
 from dataclasses import dataclass
 from pathlib import Path
-from typing import IO, Protocol
+from typing import IO, Protocol, TypeVar
 
 from sqlalchemy import select
 from sqlalchemy.exc import IntegrityError
@@ -41,6 +41,8 @@ from tracedesk.web.state import AppState
 RECEIVE_CHUNK = 1 << 20
 MAX_FILENAME = 255
 INSERT_ATTEMPTS = 3
+PageProgress = Callable[[int, int], None]
+T = TypeVar("T")
 
 
 class IncomingFile(Protocol):
@@ -104,6 +106,33 @@ def _existing_duplicate(session: Session, collection_id: int, sha256: str) -> Sh
     )
 
 
+def refuse_duplicate(state: AppState, collection_id: int, sha256: str) -> None:
+    """Refuse (409, naming the sheet) a file whose exact bytes are already in the collection."""
+    with transaction(state.reader) as session:
+        duplicate = _existing_duplicate(session, collection_id, sha256)
+        if duplicate is not None:
+            raise _duplicate_error(duplicate)
+
+
+def examine_received(state: AppState, received: ReceivedFile) -> UploadInfo:
+    """Identify the file by its content and check it against the decoding limits (UploadRefused if not)."""
+    settings = state.settings
+    limits = DecodeLimits(
+        max_file_bytes=settings.max_upload_bytes,
+        max_pixels_per_page=settings.max_pixels_per_page,
+        max_pages=settings.max_pages_per_file,
+        max_decode_seconds=settings.decode_timeout_seconds,
+        max_decode_memory_bytes=settings.decode_memory_mib * 2**20,
+    )
+    return examine_upload(
+        received.path,
+        declared_name=received.filename,
+        declared_media_type=received.media_type,
+        limits=limits,
+        pdf_dpi=settings.pdf_dpi,
+    )
+
+
 def _duplicate_error(existing: Sheet) -> Conflict:
     page = f", page {existing.page_index + 1}" if existing.page_index else ""
     return Conflict(
@@ -141,8 +170,13 @@ class PreparedPage:
     staging: DerivedStaging
 
 
-def _prepare_pages(store: FileStore, info: UploadInfo, received: ReceivedFile) -> list[PreparedPage]:
-    """Decode, normalise and tile every page into staging folders; all of them, or none (the rest discarded)."""
+def prepare_pages(
+    store: FileStore, info: UploadInfo, received: ReceivedFile, progress: PageProgress | None = None
+) -> list[PreparedPage]:
+    """Decode, normalise and tile every page into staging folders; all of them, or none (the rest discarded).
+
+    ``progress(done, total)`` is called after each page (for a job's progress bar).
+    """
     prepared: list[PreparedPage] = []
     try:
         for page in iter_sheets(info):
@@ -152,6 +186,8 @@ def _prepare_pages(store: FileStore, info: UploadInfo, received: ReceivedFile) -
                 PreparedPage(key, page.width, page.height, page.dpi[0] if page.dpi else None, page.page_index, staging)
             )
             _write_derived(page, staging.path, info=info, received=received)
+            if progress is not None:
+                progress(len(prepared), info.page_count)
     except BaseException as exc:
         for item in prepared:
             item.staging.discard()
@@ -161,7 +197,7 @@ def _prepare_pages(store: FileStore, info: UploadInfo, received: ReceivedFile) -
     return prepared
 
 
-def _insert_rows(
+def insert_rows(
     session: Session,
     collection_id: int,
     actor: Actor,
@@ -216,7 +252,7 @@ def _insert_rows(
     return created
 
 
-def _undo_files(store: FileStore, pages: list[PreparedPage]) -> None:
+def undo_files(store: FileStore, pages: list[PreparedPage]) -> None:
     """Remove this upload's own derived folders. The original is left to the orphan sweep: another upload of
     the same bytes may be using it at this moment (a row it is about to write, or one a concurrent winner just
     wrote), and only the sweep's grace period makes removing it safe."""
@@ -238,7 +274,7 @@ def _record_rows(
     for attempt in range(INSERT_ATTEMPTS):
         try:
             with transaction(state.writer) as session:
-                return _insert_rows(session, collection_id, actor, received, info, pages)
+                return insert_rows(session, collection_id, actor, received, info, pages)
         except IntegrityError:
             if attempt + 1 == INSERT_ATTEMPTS:
                 raise
@@ -247,24 +283,9 @@ def _record_rows(
 
 def ingest_received(state: AppState, collection_id: int, actor: Actor, received: ReceivedFile) -> list[SheetWithSource]:
     """Examine, tile, store and record one received file. Raises AppError / UploadRefused / StorageError."""
-    settings = state.settings
-    with transaction(state.reader) as session:
-        duplicate = _existing_duplicate(session, collection_id, received.sha256)
-        if duplicate is not None:
-            raise _duplicate_error(duplicate)
-    limits = DecodeLimits(
-        max_file_bytes=settings.max_upload_bytes,
-        max_pixels_per_page=settings.max_pixels_per_page,
-        max_pages=settings.max_pages_per_file,
-    )
-    info = examine_upload(
-        received.path,
-        declared_name=received.filename,
-        declared_media_type=received.media_type,
-        limits=limits,
-        pdf_dpi=settings.pdf_dpi,
-    )
-    pages = _prepare_pages(state.store, info, received)
+    refuse_duplicate(state, collection_id, received.sha256)
+    info = examine_received(state, received)
+    pages = prepare_pages(state.store, info, received)
     try:
         state.store.put_file(received.path, expected_sha256=received.sha256)
         for page in pages:
@@ -273,7 +294,7 @@ def ingest_received(state: AppState, collection_id: int, actor: Actor, received:
     except BaseException:
         for page in pages:
             page.staging.discard()
-        _undo_files(state.store, pages)
+        undo_files(state.store, pages)
         raise
 
 
@@ -287,12 +308,16 @@ def _refusal(filename: str, error: Exception) -> RefusedFile:
     raise error
 
 
-def ingest_uploads(state: AppState, collection_id: int, actor: Actor, incoming: Iterable[IncomingFile]) -> UploadResult:
-    """Accept or refuse each uploaded file on its own; the answer lists both, with reasons."""
+def receive_each(
+    state: AppState, collection_id: int, incoming: Iterable[IncomingFile], accept: Callable[[ReceivedFile], T]
+) -> tuple[list[T], list[RefusedFile]]:
+    """Receive each upload part and hand it to ``accept``; refusing one file (with its reason) never stops the
+    others. The received temp file is removed afterwards whatever happened."""
     with transaction(state.reader) as session:
         get_collection(session, collection_id)
     incoming_dir = state.settings.data_dir / "incoming"
-    sheets, refused = [], []
+    accepted: list[T] = []
+    refused: list[RefusedFile] = []
     for part in incoming:
         filename = clean_filename(part.filename)
         try:
@@ -301,9 +326,19 @@ def ingest_uploads(state: AppState, collection_id: int, actor: Actor, incoming: 
             refused.append(_refusal(filename, error))
             continue
         try:
-            sheets += [sheet_read(item) for item in ingest_received(state, collection_id, actor, received)]
+            accepted.append(accept(received))
         except (UploadRefused, AppError, StorageError) as error:
             refused.append(_refusal(filename, error))
         finally:
             received.path.unlink(missing_ok=True)
-    return UploadResult(sheets=sheets, refused=refused)
+    return accepted, refused
+
+
+def ingest_uploads(state: AppState, collection_id: int, actor: Actor, incoming: Iterable[IncomingFile]) -> UploadResult:
+    """Accept or refuse each uploaded file on its own; the answer lists both, with reasons."""
+
+    def accept(received: ReceivedFile) -> list[SheetWithSource]:
+        return ingest_received(state, collection_id, actor, received)
+
+    groups, refused = receive_each(state, collection_id, incoming, accept)
+    return UploadResult(sheets=[sheet_read(item) for group in groups for item in group], refused=refused)

@@ -116,6 +116,21 @@ class UploadResult(BaseModel):
     refused: list[RefusedFile]
 
 
+class QueuedFile(BaseModel):
+    """A file whose original is stored and whose decoding and tiling run as the job ``job_id``."""
+
+    filename: str
+    job_id: int
+
+
+class QueuedUploadResult(BaseModel):
+    """The answer to a background upload: follow each job at ``/api/v1/jobs/{job_id}``; its result names the
+    new sheets, or its error the reason the file was refused."""
+
+    queued: list[QueuedFile]
+    refused: list[RefusedFile]
+
+
 class SheetPage(BaseModel):
     items: list[SheetRead]
     next_cursor: str | None

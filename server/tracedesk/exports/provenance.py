@@ -110,8 +110,14 @@ def sheet_provenance(session: Session, sheet: Sheet, approval: SheetApproval, fi
 
 
 def bundle_header(
-    collection: Collection, *, generated_by: str, generated_at: datetime, options: dict[str, Any]
+    collection: Collection,
+    *,
+    generated_by: str,
+    generated_at: datetime,
+    options: dict[str, Any],
+    job: dict[str, int] | None = None,
 ) -> dict[str, Any]:
+    """The document's head; ``job`` is the background job (id, attempt) that built it, null when built at once."""
     return {
         "format": PROVENANCE_FORMAT,
         "software": {"name": "Tracedesk", "version": __version__},
@@ -124,6 +130,7 @@ def bundle_header(
             "instrument": collection.instrument,
         },
         "options": options,
+        "job": job,
     }
 
 

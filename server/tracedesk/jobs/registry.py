@@ -37,5 +37,7 @@ def known_kinds() -> list[str]:
 
 def _load_handlers() -> None:
     # Handlers live beside their features; importing them registers them (kept here to avoid import cycles).
+    from tracedesk.archive import ingest_job  # noqa: F401
     from tracedesk.digitizing import batch  # noqa: F401
+    from tracedesk.exports import bundle_jobs  # noqa: F401
     from tracedesk.jobs import builtin_jobs  # noqa: F401

@@ -1,15 +1,40 @@
-// Drag-and-drop upload with one progress bar and one clear answer per file.
+// Drag-and-drop upload with one progress bar and one clear answer per file. The bar shows the transfer (first
+// 40 %), then the server's decoding and tiling, which run as a background job once the original is stored.
 import { csrfToken } from "./csrf.js";
 
-function describeAnswer(status, body) {
-  if (status === 201 && body.sheets && body.sheets.length) {
-    const ids = body.sheets.map((s) => `#${s.id}`).join(", ");
-    return { ok: true, text: `added as sheet${body.sheets.length > 1 ? "s" : ""} ${ids}` };
-  }
-  const refused = body && body.refused && body.refused[0];
-  return { ok: false, text: refused ? refused.reason : (body && body.detail) || `refused (HTTP ${status})` };
+const TRANSFER_SHARE = 40;
+const POLL_MS = 400;
+
+function sheetsText(ids) {
+  return `added as sheet${ids.length > 1 ? "s" : ""} ${ids.map((id) => `#${id}`).join(", ")}`;
 }
 
+function refusal(status, body) {
+  const refused = body && body.refused && body.refused[0];
+  return refused ? refused.reason : (body && body.detail) || `refused (HTTP ${status})`;
+}
+
+async function followJob(jobId, bar, result) {
+  for (;;) {
+    const response = await fetch(`/api/v1/jobs/${jobId}`, { headers: { Accept: "application/json" } });
+    const job = response.ok ? await response.json() : { status: "failed", error: `HTTP ${response.status}` };
+    bar.value = TRANSFER_SHARE + (100 - TRANSFER_SHARE) * (job.progress || 0);
+    if (job.status === "succeeded") return { ok: true, text: sheetsText(job.result.sheet_ids) };
+    if (job.status === "failed") return { ok: false, text: job.error || "the file could not be read" };
+    result.textContent = job.message || "waiting for a worker…";
+    await new Promise((resolve) => { setTimeout(resolve, POLL_MS); });
+  }
+}
+
+function finish(bar, result, answer) {
+  bar.value = 100;
+  result.textContent = answer.text;
+  result.classList.add(answer.ok ? "ok" : "error");
+  return answer.ok;
+}
+
+// Resolves once the file is transferred, with { done }: a promise of its final answer (decoding goes on meanwhile;
+// a bare promise would be adopted by the outer one and make the caller wait for the job).
 function uploadOne(url, file, row) {
   const bar = row.querySelector("progress");
   const result = row.querySelector(".result");
@@ -17,24 +42,22 @@ function uploadOne(url, file, row) {
     const form = new FormData();
     form.append("files", file, file.name);
     const request = new XMLHttpRequest();
-    request.open("POST", url);
+    request.open("POST", `${url}?background=true`);
     request.setRequestHeader("X-CSRF-Token", csrfToken());
     request.upload.addEventListener("progress", (event) => {
-      if (event.lengthComputable) bar.value = (event.loaded / event.total) * 90;
+      if (event.lengthComputable) bar.value = (event.loaded / event.total) * TRANSFER_SHARE;
     });
     request.addEventListener("load", () => {
       let body = {};
       try { body = JSON.parse(request.responseText); } catch { body = {}; }
-      const answer = describeAnswer(request.status, body);
-      bar.value = 100;
-      result.textContent = answer.text;
-      result.classList.add(answer.ok ? "ok" : "error");
-      resolve(answer.ok);
+      const queued = request.status === 202 && body.queued && body.queued[0];
+      if (!queued) { resolve({ done: Promise.resolve(finish(bar, result, { ok: false, text: refusal(request.status, body) })) }); return; }
+      bar.value = TRANSFER_SHARE;
+      result.textContent = "stored; decoding and tiling…";
+      resolve({ done: followJob(queued.job_id, bar, result).then((answer) => finish(bar, result, answer)) });
     });
     request.addEventListener("error", () => {
-      result.textContent = "network error: the file was not stored";
-      result.classList.add("error");
-      resolve(false);
+      resolve({ done: Promise.resolve(finish(bar, result, { ok: false, text: "network error: the file was not stored" })) });
     });
     request.send(form);
   });
@@ -56,11 +79,12 @@ async function uploadAll(zone, files) {
   const list = document.querySelector("[data-upload-list]");
   const url = zone.dataset.uploadUrl;
   const rows = Array.from(files).map((file) => [file, addRow(list, file)]);
-  let accepted = 0;
+  const outcomes = [];
   for (const [file, row] of rows) {
-    // One at a time: the server decodes and tiles each scan, so parallel uploads would only queue there.
-    if (await uploadOne(url, file, row)) accepted += 1;
+    // Transfers one at a time (they share the line); the server's jobs decode and tile in parallel meanwhile.
+    outcomes.push((await uploadOne(url, file, row)).done);
   }
+  const accepted = (await Promise.all(outcomes)).filter(Boolean).length;
   if (accepted) refreshGrid();
 }
 
