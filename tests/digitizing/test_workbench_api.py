@@ -135,6 +135,9 @@ def test_fit_curve_gives_pixels_bands_and_residuals_for_drawing(tech: TestClient
     assert np.all(wide_upper - wide_lower > upper - lower)  # a new sample is less certain than the mean curve
     residuals = np.array([r["residual"] for r in curve["residuals"]])
     assert len(residuals) == 41 and np.max(np.abs(residuals)) < 0.03
+    # The SD behind the +-2 sd guides and the outlier rings is in metres like the residuals, sqrt(SSR / (n - p))
+    # (textbook definition), not in units of each sample's uncertainty.
+    assert curve["residual_sd"] == pytest.approx(np.sqrt(residuals @ residuals / (41 - 2)), rel=1e-9)
     assert curve["caution"]  # part of the grid lies outside the traced range
 
 

@@ -13,6 +13,7 @@ import io
 from datetime import datetime, timedelta
 
 import numpy as np
+import pytest
 from fastapi.testclient import TestClient
 
 from tests.conftest import PASSWORD
@@ -119,6 +120,10 @@ def test_fits_csv_has_one_row_per_fit_with_the_stored_coefficients(signed_in: Cl
         np.testing.assert_allclose(values, fit["coefficients"], rtol=1e-9)
         np.testing.assert_allclose(errors, fit["standard_errors"], rtol=1e-9)
         assert row[column["equation"]] == text_cell(fit["equation"]["text"])
+        # Residual SD in the value unit (m): sqrt(SSR / (n - p)) of the samples about the stored curve (textbook).
+        residual = np.asarray(YS) - np.polynomial.polynomial.polyval(XS, fit["coefficients"])
+        expected_sd = np.sqrt(residual @ residual / (len(XS) - count))
+        assert float(row[column["residual standard deviation [value unit]"]]) == pytest.approx(expected_sd, rel=1e-6)
         assert row[column["x unit"]] == "h" and row[column["value unit"]] == "m"
         np.testing.assert_allclose(
             [float(row[column["domain start [x unit]"]]), float(row[column["domain end [x unit]"]])], [0, 24], atol=1e-9

@@ -155,7 +155,10 @@ def test_weighted_fit_matches_scaled_lstsq() -> None:
     assert absolute.covariance is not None
     assert_allclose(absolute.covariance, np.linalg.inv(design.T @ design), rtol=1e-8)
     chi2 = float(np.sum((design @ solution - y / sigma) ** 2))
-    assert relative.stats["residual_sd"] == pytest.approx(np.sqrt(chi2 / (x.size - 3)), rel=1e-10)
+    assert relative.stats["reduced_chi_square"] == pytest.approx(chi2 / (x.size - 3), rel=1e-10)
+    # The residual SD stays in y units: the plain residuals of the weighted solution.
+    plain = y - np.vander(x, 3, increasing=True) @ solution
+    assert relative.stats["residual_sd"] == pytest.approx(np.sqrt(plain @ plain / (x.size - 3)), rel=1e-10)
 
 
 def test_information_criteria_follow_their_formulas() -> None:

@@ -70,11 +70,14 @@ def test_review_flow_on_the_task_page(signed_in: Clients) -> None:
     page = reviewer.get(url).text
     assert "Electronic signature" in page and "Return to the technician" in page and "Submit for review" not in page
     assert 'data-review-pins data-sheet-width="640" data-sheet-height="400"' in page
+    # The empty state is a sentence, not item 1 of the ordered list of comments.
+    assert '<p class="muted">No comments.</p>' in page and '<ol class="comments">' not in page
     u, v = pixel_of(12, 6)
     pinned = _post(reviewer, f"{url}/comments", url, body="The peak is higher on the scan", u=f"{u}", v=f"{v}")
     assert pinned.status_code == 303  # type: ignore[attr-defined]
     page = reviewer.get(url).text
     assert f"left: {100 * u / 640}%; top: {100 * v / 400}%" in page and "The peak is higher on the scan" in page
+    assert "No comments." not in page
     outside = _post(reviewer, f"{url}/comments", url, body="off the sheet", u="900", v="10")
     assert outside.status_code == 422 and "outside the sheet" in outside.text  # type: ignore[attr-defined]
 

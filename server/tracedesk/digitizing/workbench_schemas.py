@@ -104,7 +104,9 @@ class FitCurve(BaseModel):
     prediction: list[list[float | None]] | None
     pixels: dict[str, list[list[float | None]]]
     residuals: list[FitCurveResidual]
-    residual_sd: float | None
+    residual_sd: float | None = Field(
+        description="standard deviation of the residuals in value units, sqrt(sum r^2 / (n - p)), weighted fit or not"
+    )
     caution: str | None
 
 

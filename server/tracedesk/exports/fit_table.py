@@ -35,6 +35,7 @@ BASE_HEADER = [
     "points",
     "degrees of freedom",
     "residual standard deviation [value unit]",
+    "reduced chi-square (weighted fits; residuals in units of each sample's uncertainty)",
     "r squared",
     "AICc",
     "BIC",
@@ -123,7 +124,8 @@ def _base_cells(row: FitRow, result: dict[str, Any]) -> list[Cell]:
         domain[1],
         stats.get("n"),
         stats.get("dof"),
-        stats.get("residual_sd"),
+        _residual_sd(stats),
+        stats.get("reduced_chi_square"),
         stats.get("r_squared"),
         stats.get("aicc"),
         stats.get("bic"),
@@ -136,6 +138,12 @@ def _base_cells(row: FitRow, result: dict[str, Any]) -> list[Cell]:
         approval.signed_at.isoformat().replace("+00:00", "Z") if approval.signed_at else None,
         approval.record_sha256,
     ]
+
+
+def _residual_sd(stats: dict[str, Any]) -> Any:
+    """The residual SD in value units. Fits stored before ``reduced_chi_square`` existed may hold the weighted,
+    dimensionless figure under this name instead, so their cell stays empty rather than carry a wrong unit."""
+    return stats.get("residual_sd") if "reduced_chi_square" in stats else None
 
 
 def fit_table(rows: list[FitRow]) -> tuple[list[str], Iterator[list[Cell]]]:

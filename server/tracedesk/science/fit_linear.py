@@ -35,6 +35,7 @@ from scipy.linalg import lapack
 from tracedesk.science.errors import ScienceInputError
 from tracedesk.science.fit_inputs import FloatArray, FoldIndex, Samples, fold_indices
 from tracedesk.science.fit_stats import (
+    ResidualSpread,
     StatsDict,
     noise_variance_factor,
     summary_statistics,
@@ -68,6 +69,8 @@ class LinearSolution:
         Upper-triangular ``R`` of the weighted design matrix (``A^T W^2 A = R^T R``).
     weighted_rss : float
         ``sum (w (y - A c))^2``.
+    value_rss : float
+        ``sum (y - A c)^2`` without weights (``y`` units squared; equal to ``weighted_rss`` unweighted).
     cv_rmse : float or None
         Weighted k-fold cross-validated RMS prediction error (``y`` units); None when a fold's
         training part cannot determine the coefficients.
@@ -81,6 +84,7 @@ class LinearSolution:
     extended_coefficients: LongArray
     r_factor: FloatArray
     weighted_rss: float
+    value_rss: float
     cv_rmse: float | None
     condition_number: float
     refined: bool
@@ -159,10 +163,16 @@ def solve_linear_least_squares(
         extended_coefficients=extended,
         r_factor=solved.r_factor,
         weighted_rss=weighted_rss,
+        value_rss=_value_rss(fold_data, coefficients) if samples.weighted else weighted_rss,
         cv_rmse=solved.cv_rmse,
         condition_number=condition,
         refined=refined,
     )
+
+
+def _value_rss(folds: list[_Fold], coefficients: FloatArray) -> float:
+    """``sum (y - A c)^2`` without weights: each weighted residual divided by its weight ``1 / sigma``."""
+    return sum(float(np.sum(((fold.target - fold.design @ coefficients) / fold.weights) ** 2)) for fold in folds)
 
 
 def _fold(samples: Samples, index: FoldIndex, basis: BasisBuilder, columns: int) -> _Fold:
@@ -350,6 +360,7 @@ def summarise_linear_solution(
         count=samples.count,
         parameter_count=columns + extra_parameters,
         weighted_rss=solution.weighted_rss,
+        residuals=ResidualSpread(solution.value_rss, samples.count, weighted=samples.weighted),
         r_squared=weighted_r_squared(samples.y, samples.weights, weighted_rss=solution.weighted_rss),
         cv_rmse=solution.cv_rmse,
         condition_number=solution.condition_number,

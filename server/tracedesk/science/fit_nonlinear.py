@@ -39,6 +39,7 @@ from tracedesk.science.fit_stats import (
     condition_number,
     covariance_from_jacobian,
     noise_variance_factor,
+    residual_spread,
     summary_statistics,
     weighted_r_squared,
 )
@@ -232,6 +233,7 @@ def _internal_fit(
         count=samples.count,
         parameter_count=3,
         weighted_rss=weighted_rss,
+        residuals=residual_spread(samples, residual),
         r_squared=weighted_r_squared(samples.y, samples.weights, weighted_rss=weighted_rss),
         cv_rmse=_cross_validated_rmse(samples, u, theta, folds=folds),
         condition_number=condition_number(jacobian),

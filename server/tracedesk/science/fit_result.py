@@ -83,7 +83,9 @@ class FitResult:
     covariance : ndarray or None
         Parameter covariance in the reported parametrisation.
     stats : dict
-        ``n, dof, residual_sd, r_squared, aicc, bic, cv_rmse, condition_number`` (None where undefined).
+        ``n, dof, residual_sd, reduced_chi_square, r_squared, aicc, bic, cv_rmse, condition_number``
+        (None where undefined); ``residual_sd`` is in ``y`` units also for weighted fits, and
+        ``reduced_chi_square`` (weighted fits only) is the dimensionless weighted counterpart.
     domain : tuple of float
         ``(xmin, xmax)`` of the samples: the traced range.
     warnings : tuple of str

@@ -29,13 +29,19 @@ from tracedesk.science.fit_inputs import (
     DEFAULT_CV_FOLDS,
     FloatArray,
     MergedSamples,
+    Samples,
     check_fold_count,
     check_samples,
     fold_indices,
     merge_duplicate_x,
 )
 from tracedesk.science.fit_result import FitResult
-from tracedesk.science.fit_stats import noise_variance_factor, summary_statistics, weighted_r_squared
+from tracedesk.science.fit_stats import (
+    noise_variance_factor,
+    residual_spread,
+    summary_statistics,
+    weighted_r_squared,
+)
 
 SPLINE_COVARIANCE_LIMIT: Final = 2000
 # SciPy's GCV search runs Python loops over the samples (about 1 ms per sample): cap the request time.
@@ -117,7 +123,7 @@ def fit_spline(
     lam = _checked_smoothing(smoothing)
     spline = make_smoothing_spline(merged.x, merged.y, w=merged.weights**2, lam=lam)
     lam = recovered_smoothing(spline, merged) if lam is None else lam
-    return _spline_result(merged, spline, lam=lam, folds=folds, absolute_sigma=absolute_sigma)
+    return _spline_result(samples, merged, spline, lam=lam, folds=folds, absolute_sigma=absolute_sigma)
 
 
 def _checked_smoothing(smoothing: float | None) -> float | None:
@@ -129,7 +135,7 @@ def _checked_smoothing(smoothing: float | None) -> float | None:
 
 
 def _spline_result(
-    merged: MergedSamples, spline: BSpline, *, lam: float, folds: int, absolute_sigma: bool
+    samples: Samples, merged: MergedSamples, spline: BSpline, *, lam: float, folds: int, absolute_sigma: bool
 ) -> FitResult:
     count = merged.x.size
     residual = merged.y - spline(merged.x)
@@ -142,6 +148,8 @@ def _spline_result(
         count=count,
         parameter_count=effective,
         weighted_rss=weighted_rss,
+        # Every original sample, so the scatter within merged duplicates counts too (pooled SD).
+        residuals=residual_spread(samples, samples.y - spline(samples.x)),
         r_squared=weighted_r_squared(merged.y, merged.weights, weighted_rss=weighted_rss),
         cv_rmse=_cross_validated_rmse(merged, lam, folds=folds),
         condition_number=math.nan,

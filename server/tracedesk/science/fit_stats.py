@@ -2,8 +2,12 @@
 
 Definitions (weights ``w_i = 1 / sigma_i``, all ones without sigma; residuals ``r_i = y_i - f(x_i)``):
 
-- residual SD ``s = sqrt(sum (w r)^2 / dof)`` with ``dof = n - p`` (``y`` units when unweighted, a
-  dimensionless reduced chi value when weighted);
+- residual SD ``s = sqrt(sum r^2 / dof)`` with ``dof = n - p``: the spread of the residuals in ``y``
+  units whether or not the fit was weighted (the residual plot's guide lines and the outlier marks
+  use it, so it must be in the units of the residuals);
+- reduced chi-square ``sum (w r)^2 / dof`` (dimensionless; weighted fits only, None otherwise):
+  about 1 when the given uncertainties describe the scatter, and the factor the relative-sigma
+  covariance is scaled by;
 - ``R^2 = 1 - sum (w r)^2 / sum w^2 (y - ybar_w)^2``, ``ybar_w`` the weighted mean;
 - Gaussian log-likelihood information criteria with ``k = p + 1`` (the noise variance counts):
   ``AIC = n ln(RSS / n) + 2k``, ``AICc = AIC + 2k(k + 1) / (n - k - 1)``, ``BIC = n ln(RSS / n) + k ln n``
@@ -19,6 +23,7 @@ score minus infinity.
 from __future__ import annotations
 
 import math
+from dataclasses import dataclass
 from typing import Final
 
 import numpy as np
@@ -26,11 +31,50 @@ from scipy import linalg as scipy_linalg
 from scipy import stats as scipy_stats
 
 from tracedesk.science.errors import ScienceInputError
-from tracedesk.science.fit_inputs import FloatArray
+from tracedesk.science.fit_inputs import FloatArray, Samples
 
 StatsDict = dict[str, float | int | None]
 
-STAT_NAMES: Final = ("n", "dof", "residual_sd", "r_squared", "aicc", "bic", "cv_rmse", "condition_number")
+STAT_NAMES: Final = (
+    "n",
+    "dof",
+    "residual_sd",
+    "reduced_chi_square",
+    "r_squared",
+    "aicc",
+    "bic",
+    "cv_rmse",
+    "condition_number",
+)
+
+
+@dataclass(frozen=True)
+class ResidualSpread:
+    """Unweighted residuals of a fit, summarised: enough for a residual SD in ``y`` units.
+
+    Attributes
+    ----------
+    sum_of_squares : float
+        ``sum (y - f(x))^2`` over the samples (``y`` units squared), no weights.
+    count : int
+        Number of samples in that sum (the original samples, also when duplicates were merged).
+    weighted : bool
+        Whether the fit was weighted by given uncertainties.
+    """
+
+    sum_of_squares: float
+    count: int
+    weighted: bool
+
+    def standard_deviation(self, parameter_count: float) -> float | None:
+        """``sqrt(sum r^2 / (n - p))`` (``y`` units); None without residual degrees of freedom."""
+        dof = self.count - parameter_count
+        return math.sqrt(self.sum_of_squares / dof) if dof > 0 else None
+
+
+def residual_spread(samples: Samples, residual: FloatArray) -> ResidualSpread:
+    """:class:`ResidualSpread` of ``residual = y - f(x)`` at the samples (``y`` units)."""
+    return ResidualSpread(float(residual @ residual), samples.count, weighted=samples.weighted)
 
 
 def weighted_r_squared(y: FloatArray, weights: FloatArray, *, weighted_rss: float) -> float | None:
@@ -76,12 +120,17 @@ def summary_statistics(
     count: int,
     parameter_count: float,
     weighted_rss: float,
+    residuals: ResidualSpread,
     r_squared: float | None,
     cv_rmse: float | None,
     condition_number: float,
     scale: float,
 ) -> StatsDict:
-    """Assemble the stats dictionary every :class:`FitResult` carries (keys :data:`STAT_NAMES`)."""
+    """Assemble the stats dictionary every :class:`FitResult` carries (keys :data:`STAT_NAMES`).
+
+    ``weighted_rss`` (dimensionless when weighted) drives the information criteria and the reduced
+    chi-square; ``residuals`` (``y`` units) gives the residual SD.
+    """
     dof = count - parameter_count
     aicc, bic = information_criteria(
         weighted_rss=weighted_rss, count=count, parameter_count=parameter_count, scale=scale
@@ -90,7 +139,8 @@ def summary_statistics(
     return {
         "n": count,
         "dof": dof_value,
-        "residual_sd": math.sqrt(weighted_rss / dof) if dof > 0 else None,
+        "residual_sd": residuals.standard_deviation(parameter_count),
+        "reduced_chi_square": weighted_rss / dof if residuals.weighted and dof > 0 else None,
         "r_squared": r_squared,
         "aicc": aicc,
         "bic": bic,

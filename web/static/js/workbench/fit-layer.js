@@ -1,6 +1,6 @@
 // A fit on the scan: the fitted curve (solid over the traced range, dashed amber beyond it), its confidence band
 // filled, its prediction band as thin dashed edges, the stretch beyond the traced range shaded amber as a warning,
-// and rings on samples whose residual exceeds 2.5 residual standard deviations.
+// and rings on samples whose residual exceeds 2.5 residual standard deviations (value units, like the residuals).
 import { elementPoint, label, strokeWithHalo, tracePath } from "./overlay.js";
 
 const CURVE = "#212529";
@@ -8,6 +8,8 @@ const BAND = "rgba(33,37,41,0.16)";
 const OUTSIDE = "rgba(245,159,0,0.32)";
 const OUTSIDE_LINE = "#e67700";
 const OUTLIER_SD = 2.5;
+const OUTSIDE_TEXT = "outside the traced range";
+const LABEL_WIDTH = 150; // px kept free at the right edge for the label text
 
 function runs(length, keep) {
   const out = [];
@@ -45,6 +47,24 @@ function strokeCurve(context, t, points, outside) {
   context.setLineDash([]);
 }
 
+// One label per stretch beyond the traced range, at its first point on screen; none for a stretch scrolled off
+// screen, so the label never points at curve the user cannot see.
+function labelOutside(context, t, fitted, outside) {
+  const width = context.canvas.clientWidth;
+  const height = context.canvas.clientHeight;
+  const onScreen = ([x, y]) => x >= 0 && x <= width && y >= 0 && y <= height;
+  for (const [a, b] of runs(fitted.length, (k) => outside[k] && fitted[k][0] !== null && fitted[k][1] !== null)) {
+    let point = null;
+    for (let k = a; k < b && !point; k += 1) {
+      const candidate = elementPoint(t, fitted[k][0], fitted[k][1]);
+      if (onScreen(candidate)) point = candidate;
+    }
+    if (!point) continue;
+    const [x, y] = point;
+    label(context, OUTSIDE_TEXT, Math.max(Math.min(x + 6, width - LABEL_WIDTH), 6), Math.max(y - 8, 14), OUTSIDE_LINE);
+  }
+}
+
 function markOutliers(context, t, curve) {
   if (!curve.residual_sd) return;
   context.strokeStyle = "#c92a2a";
@@ -75,12 +95,7 @@ export function fitLayer(model) {
       }
       strokeCurve(context, t, pixels.fitted, outside);
       markOutliers(context, t, curve);
-      const first = outside.findIndex((flag, k) => flag && pixels.fitted[k][0] !== null);
-      if (first >= 0) {
-        const [x, y] = elementPoint(t, ...pixels.fitted[first]);
-        const width = context.canvas.clientWidth;
-        label(context, "outside the traced range", Math.min(Math.max(x + 6, 6), width - 150), y - 8, OUTSIDE_LINE);
-      }
+      labelOutside(context, t, pixels.fitted, outside);
     },
   };
 }

@@ -7,7 +7,8 @@ import { plot } from "./plot.js";
 import { typesetInto } from "./typeset.js";
 
 const STATS = [
-  ["n", "samples"], ["dof", "degrees of freedom"], ["residual_sd", "residual std. deviation"], ["r_squared", "R²"],
+  ["n", "samples"], ["dof", "degrees of freedom"], ["residual_sd", "residual std. deviation (value units)"],
+  ["reduced_chi_square", "reduced χ² (residuals in units of each sample's uncertainty)"], ["r_squared", "R²"],
   ["aicc", "AICc"], ["bic", "BIC"], ["cv_rmse", "cross-validation RMSE"], ["condition_number", "condition number"],
 ];
 const NEEDS = { polynomial: ["degree"], fourier: ["degree", "period"], interpolation: ["degree"] };
@@ -84,6 +85,9 @@ export function createFitPanel(panel, wb) {
     stats.replaceChildren();
     for (const [key, words] of STATS) {
       if (!(key in fit.stats)) continue;
+      if (key === "reduced_chi_square" && fit.stats[key] === null) continue; // unweighted fit: no uncertainties
+      // Fits stored before reduced_chi_square existed may hold a weighted, unitless figure under residual_sd.
+      if (key === "residual_sd" && !("reduced_chi_square" in fit.stats)) continue;
       const dt = document.createElement("dt");
       dt.textContent = words;
       const dd = document.createElement("dd");
@@ -115,7 +119,16 @@ export function createFitPanel(panel, wb) {
     });
   }
 
+  // The form names the shown fit's model, so "Fit" repeats it rather than whatever the form held before.
+  function formFromFit(fit) {
+    form.elements.family.value = fit.family;
+    if (fit.options.degree !== undefined) form.elements.degree.value = fit.options.degree;
+    if (fit.family === "fourier") form.elements.period.value = fit.options.period ?? "";
+    showOptions();
+  }
+
   async function showFit(fit) {
+    formFromFit(fit);
     renderFit(fit);
     try {
       curve = await getJson(`/api/v1/fits/${fit.id}/curve?${query({ count: 400 })}`);
@@ -203,7 +216,8 @@ export function createFitPanel(panel, wb) {
       use.addEventListener("click", () => {
         form.elements.family.value = candidate.family;
         if (candidate.options.degree !== undefined) form.elements.degree.value = candidate.options.degree;
-        if (candidate.options.period !== undefined && candidate.options.period !== null) form.elements.period.value = candidate.options.period;
+        // A period the suggestion estimated (null) is estimated again, not taken from an earlier entry.
+        if (candidate.options.period !== undefined) form.elements.period.value = candidate.options.period ?? "";
         showOptions();
         fitNow();
       });
