@@ -37,6 +37,9 @@ class Settings(BaseSettings):
     max_pixels_per_page: int = 120_000_000
     max_pages_per_file: int = 500
     pdf_dpi: int = 300
+    # Each page is decoded in a child process with this wall-clock time and address space (tracedesk.imaging).
+    decode_timeout_seconds: float = Field(default=60.0, gt=0)
+    decode_memory_mib: int = Field(default=2048, ge=256)
 
     # Storage backend: "local" (data_dir/files) or "s3".
     storage_backend: Literal["local", "s3"] = "local"

@@ -2,7 +2,9 @@
 
 Memory is measured two ways around each refusal: tracemalloc's peak (Python allocations) and the growth of the
 process's peak resident set (VmHWM, reset through /proc/self/clear_refs; this also sees C allocations by
-Pillow, libvips and PDFium). Decoding any of the claimed sizes would need gigabytes.
+Pillow, libvips and PDFium). Decoding any of the claimed sizes would need gigabytes. PDFs whose cost the page
+box does not show (a content stream that inflates to a gigabyte, one that fills the page ten thousand times)
+are stopped by the decoder process's memory and time limits; this process's memory does not grow.
 """
 
 from __future__ import annotations
@@ -13,12 +15,14 @@ from pathlib import Path
 import pytest
 from imaging_samples import (
     encrypted_pdf_bytes,
+    inflating_pdf_bytes,
     measure_memory,
     png_chunk,
     png_claiming_size,
     rgb_test_pattern,
     save_image,
     save_pdf_pages,
+    slow_pdf_bytes,
     tiff_with_frames,
 )
 from PIL import Image, ImageFile
@@ -26,6 +30,8 @@ from PIL import Image, ImageFile
 from tracedesk.imaging import (
     CorruptUpload,
     DecodeLimits,
+    DecodeMemoryLimit,
+    DecodeTimeLimit,
     EncryptedDocument,
     FileTooLarge,
     TooManyPages,
@@ -175,6 +181,23 @@ def test_pdf_with_more_pages_than_the_cap_is_refused(tmp_path: Path) -> None:
 )
 def test_damaged_and_encrypted_pdfs_are_refused(tmp_path: Path, data: bytes, kind: type[UploadRefused]) -> None:
     _assert_refused(_write(tmp_path, "doc.pdf", data), kind, 422)
+
+
+def test_pdf_whose_content_inflates_to_a_gibibyte_is_stopped_by_the_memory_limit(tmp_path: Path) -> None:
+    """About 1 MB of file; PDFium needed 2 GB to render it in-process (measured before the limit existed)."""
+    path = _write(tmp_path, "bomb.pdf", inflating_pdf_bytes(1024))
+    assert path.stat().st_size < 2 * 2**20
+    limits = DecodeLimits(max_decode_memory_bytes=512 * 2**20)
+    error = _assert_refused(path, DecodeMemoryLimit, 413, limits=limits)
+    assert error.reason.startswith("rendering page 1 of the PDF file needs more than the 512 MiB of memory")
+
+
+def test_pdf_filling_its_page_ten_thousand_times_is_stopped_by_the_time_limit(tmp_path: Path) -> None:
+    """Under 1 kB of file; 2000 fills took PDFium 29 s, so 10 000 take minutes without the limit."""
+    path = _write(tmp_path, "slow.pdf", slow_pdf_bytes(10_000))
+    assert path.stat().st_size < 1024
+    error = _assert_refused(path, DecodeTimeLimit, 422, limits=DecodeLimits(max_decode_seconds=2.0))
+    assert error.reason.startswith("rendering page 1 of the PDF file took longer than the limit of 2 s")
 
 
 def test_file_over_the_byte_cap_is_refused(tmp_path: Path) -> None:

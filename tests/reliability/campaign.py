@@ -14,7 +14,7 @@ from pathlib import Path
 from fastapi import FastAPI
 from fastapi.testclient import TestClient
 from httpx import Response
-from sqlalchemy import create_engine, func, select, text
+from sqlalchemy import create_engine, func, make_url, select, text
 
 from tests.conftest import PASSWORD, POSTGRES_ENV
 from tracedesk.accounts.service import create_api_token, create_user
@@ -90,6 +90,27 @@ def fresh_database_url(kind: str, folder: Path) -> Iterator[str]:
         admin.dispose()
 
 
+@contextmanager
+def fresh_database(kind: str, folder: Path) -> Iterator[str]:
+    """An empty database of its own: a SQLite file in ``folder``, or a new PostgreSQL database dropped afterwards.
+
+    A whole PostgreSQL database, where a schema would not do: extensions such as amcheck are per database."""
+    if kind == "sqlite":
+        yield f"sqlite:///{folder / 'campaign.sqlite3'}"
+        return
+    base = make_url(os.environ[POSTGRES_ENV])
+    name = f"tracedesk_r_{secrets.token_hex(6)}"
+    admin = create_engine(base, isolation_level="AUTOCOMMIT")
+    with admin.connect() as connection:  # fails loudly (never skips) when PostgreSQL is not reachable
+        connection.execute(text(f"CREATE DATABASE {name}"))
+    try:
+        yield base.set(database=name).render_as_string(hide_password=False)
+    finally:
+        with admin.connect() as connection:
+            connection.execute(text(f"DROP DATABASE {name} WITH (FORCE)"))
+        admin.dispose()
+
+
 def campaign_settings(database_url: str, data_dir: Path, **overrides: object) -> Settings:
     values: dict[str, object] = {
         "environment": "test",
@@ -98,6 +119,10 @@ def campaign_settings(database_url: str, data_dir: Path, **overrides: object) ->
         "secret_key": "reliability-secret-" + "x" * 40,
         # A generous address budget: the campaign signs in many times from the one test address.
         "login_max_failures_per_address": 1000,
+        # Tighter decoder limits than production (60 s, 2048 MiB) so hostile files reach them sooner; still far
+        # above what the campaign's own scans need (a 400 Mpx image on a PDF page renders in about 1 s, 30 MB).
+        "decode_timeout_seconds": 10.0,
+        "decode_memory_mib": 1024,
     }
     return Settings(**(values | overrides))  # type: ignore[arg-type]
 

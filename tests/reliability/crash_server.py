@@ -20,9 +20,11 @@ from fastapi import FastAPI
 
 from tracedesk.app import create_app
 from tracedesk.config import Settings
+from tracedesk.imaging import decoder_launch
 
 
 def _serve(app: FastAPI, port: int) -> None:
+    decoder_launch.prewarm()  # this server's own spare decoder process (a forked one cannot use the launcher's)
     config = uvicorn.Config(app, host="127.0.0.1", port=port, log_level="warning", access_log=False)
     uvicorn.Server(config).run()
 

@@ -21,9 +21,11 @@ from tests.archive.scans import chart_image, encoded, png_bytes
 from tests.imaging.imaging_samples import (
     PNG_SIGNATURE,
     encrypted_pdf_bytes,
+    inflating_pdf_bytes,
     png_chunk,
     png_claiming_size,
     save_pdf_pages,
+    slow_pdf_bytes,
     tiff_with_frames,
 )
 
@@ -108,7 +110,11 @@ def tiff_bytes(image: Image.Image) -> bytes:
 
 
 def corpus() -> list[Hostile]:
-    """Every hostile file with the status it must get (415 wrong type, 413 too big, 422 damaged)."""
+    """Every hostile file with the status it must get (415 wrong type, 413 too big, 422 damaged or too slow).
+
+    The two PDFs whose cost the page box hides go past the decoder's memory and time limits, production
+    defaults (2048 MiB, 60 s) as well as the campaign's (campaign.py).
+    """
     jpeg = encoded(chart_image(), "JPEG", quality=90)
     png = png_bytes(seed=11)
     tiff = tiff_bytes(chart_image(300, 200))
@@ -142,6 +148,8 @@ def corpus() -> list[Hostile]:
         Hostile("PDF with 2 000 pages", "many.pdf", pdf_bytes_with_pages([(100.0, 100.0)] * 2_000), "", 413),
         Hostile("PDF with 10 000 pages", "many.pdf", pdf_bytes_with_pages([(72.0, 72.0)] * 10_000), "", 413),
         Hostile("PDF with a 200 x 200 in page box", "huge.pdf", pdf_bytes_with_pages([(14_400.0, 14_400.0)]), "", 413),
+        Hostile("PDF content inflating to 2 GiB (2 MB file)", "inflates.pdf", inflating_pdf_bytes(2048), "", 413),
+        Hostile("PDF filling its page 10 000 times (1 kB file)", "slow.pdf", slow_pdf_bytes(10_000), "", 422),
         Hostile("damaged PDF", "doc.pdf", b"%PDF-1.4\n% nothing else here\n", "application/pdf", 422),
         Hostile("password-protected PDF", "locked.pdf", encrypted_pdf_bytes(), "application/pdf", 422),
     ]

@@ -65,6 +65,12 @@ AREAS = (
         "50 simultaneous approvals",
     ),
     Area(
+        "load",
+        "Bounded load",
+        "concurrent technicians saving their traces on a loopback server, count-limited: 0 errors, each read "
+        "shows its save, versions and audit rows = acknowledged saves, chain verifies",
+    ),
+    Area(
         "faults",
         "Fault injection",
         "a failure at each step of the upload and edit pipelines, disk full (507): all or nothing, chain intact",
@@ -91,6 +97,7 @@ MODULE_AREAS = {
     "test_authorization": "authorization",
     "test_sessions_csrf": "sessions",
     "test_concurrency": "concurrency",
+    "test_bounded_load": "load",
     "test_faults": "faults",
     "test_crash_recovery": "crash",
     "test_audit_tamper": "audit",

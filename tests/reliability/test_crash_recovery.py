@@ -1,11 +1,15 @@
 """The server killed with SIGKILL in the middle of writes, many times over, loses nothing it acknowledged.
 
-A real uvicorn server on a loopback port, on a temp SQLite data folder, takes creates, edits and uploads from
-several threads; after a random moment it is killed with SIGKILL (no shutdown, no flush), then the test checks
-the database as a crashed installation would be found: SQLite's own integrity check passes, every write whose
-answer reached the client is there, the audit chain verifies, every file a row references is in the store.
-After the last round `tracedesk sweep --grace-hours 0` removes the files that died with their uploads (the way
-SQLite tests crash recovery; RELIABILITY.md, "Concurrency and durability"). Nothing reaches beyond 127.0.0.1.
+A real uvicorn server on a loopback port, on a temp data folder and a fresh database (a SQLite file, or a new
+PostgreSQL database), takes creates, edits and uploads from several threads; after a random moment it is killed
+with SIGKILL (no shutdown, no flush), then the test checks the database as a crashed installation would be
+found: the database's own integrity check passes (SQLite's ``PRAGMA integrity_check``; on PostgreSQL amcheck's
+``verify_heapam`` on every table and ``bt_index_check`` with ``heapallindexed`` on every B-tree index), every
+write whose answer reached the client is there, the audit chain verifies, every file a row references is in the
+store. After the last round `tracedesk sweep --grace-hours 0` removes the files that died with their uploads
+(the way SQLite tests crash recovery; RELIABILITY.md, "Concurrency and durability"). On PostgreSQL the killed
+server's connections die with it and the database server rolls their transactions back, as after a crash of
+the application host. Nothing reaches beyond 127.0.0.1.
 """
 
 from __future__ import annotations
@@ -13,9 +17,6 @@ from __future__ import annotations
 import os
 import random
 import signal
-import socket
-import subprocess
-import sys
 import threading
 import time
 from collections.abc import Callable
@@ -25,11 +26,21 @@ from pathlib import Path
 import httpx
 import pytest
 from click.testing import CliRunner
-from sqlalchemy import select, text
+from sqlalchemy import Connection, select, text
+from sqlalchemy.exc import DBAPIError
 
 from tests.archive.scans import png_bytes
-from tests.reliability.campaign import build_campaign, missing_files, new_collection, referenced_files, stored_files
+from tests.conftest import database_kinds
+from tests.reliability.campaign import (
+    build_campaign,
+    fresh_database,
+    missing_files,
+    new_collection,
+    referenced_files,
+    stored_files,
+)
 from tests.reliability.conftest import Figures
+from tests.reliability.live_server import Launcher, free_port, server_environment, wait_until_ready
 from tracedesk.app import build_state
 from tracedesk.audit.service import verify_chain
 from tracedesk.cli import main as cli_main
@@ -37,10 +48,9 @@ from tracedesk.db import transaction
 from tracedesk.models import AuditEvent, Collection, Sheet
 from tracedesk.web.state import AppState
 
-ROOT = Path(__file__).resolve().parents[2]
 ROUNDS = 20
 MIN_ROUNDS = 8
-TIME_BUDGET_S = 45.0  # after MIN_ROUNDS, stop starting new rounds once this is spent
+TIME_BUDGET_S = 45.0  # per database: after MIN_ROUNDS, stop starting new rounds once this is spent
 KILL_AFTER_S = (0.3, 1.5)
 WRITERS = 3
 
@@ -54,61 +64,6 @@ class Ledger:
     sheets: set[int] = field(default_factory=set)
     edits: list[tuple[int, str]] = field(default_factory=list)  # (version, description) of the edited box
     lock: threading.Lock = field(default_factory=threading.Lock)
-
-
-class Launcher:
-    """The forking server launcher (crash_server.py) as a subprocess of the test."""
-
-    def __init__(self, env: dict[str, str]) -> None:
-        self.process = subprocess.Popen(
-            [sys.executable, "-m", "tests.reliability.crash_server"],
-            cwd=ROOT,
-            env=env,
-            stdin=subprocess.PIPE,
-            stdout=subprocess.PIPE,
-            text=True,
-        )
-
-    def _ask(self, command: str) -> str:
-        assert self.process.stdin is not None and self.process.stdout is not None
-        self.process.stdin.write(command + "\n")
-        self.process.stdin.flush()
-        return self.process.stdout.readline().strip()
-
-    def start(self, port: int) -> int:
-        answer = self._ask(f"start {port}")
-        assert answer.startswith("pid "), answer
-        return int(answer.split()[1])
-
-    def reap(self, pid: int) -> None:
-        self._ask(f"wait {pid}")
-
-    def close(self) -> None:
-        if self.process.poll() is None:
-            assert self.process.stdin is not None
-            self.process.stdin.write("quit\n")
-            self.process.stdin.close()
-            self.process.wait(timeout=10)
-        for stream in (self.process.stdin, self.process.stdout):
-            if stream is not None and not stream.closed:
-                stream.close()
-
-
-def _free_port() -> int:
-    with socket.socket() as probe:
-        probe.bind(("127.0.0.1", 0))
-        return int(probe.getsockname()[1])
-
-
-def _wait_until_ready(base: str) -> None:
-    deadline = time.monotonic() + 30
-    while time.monotonic() < deadline:
-        try:
-            if httpx.get(f"{base}/api/v1/health", timeout=1.0).status_code == 200:
-                return
-        except httpx.TransportError:
-            time.sleep(0.05)
-    raise AssertionError("the server did not come up within 30 s")
 
 
 def _creator(client: httpx.Client, ledger: Ledger, tag: str, stop: threading.Event) -> None:
@@ -156,10 +111,10 @@ def _run_quietly(work: Callable[[], None]) -> None:
 
 
 def _one_round(launcher: Launcher, token: str, ledger: Ledger, box: int, round_number: int, rng: random.Random) -> None:
-    port = _free_port()
+    port = free_port()
     pid = launcher.start(port)
     base = f"http://127.0.0.1:{port}"
-    _wait_until_ready(base)
+    wait_until_ready(base)
     stop = threading.Event()
     clients = [
         httpx.Client(base_url=base, headers={"Authorization": f"Bearer {token}"}, timeout=20.0)
@@ -181,13 +136,43 @@ def _one_round(launcher: Launcher, token: str, ledger: Ledger, box: int, round_n
     launcher.reap(pid)
 
 
+def _postgres_integrity_problems(connection: Connection) -> list[str]:
+    """amcheck on every table (heap pages) and every B-tree index (with all heap tuples found in it)."""
+    connection.execute(text("CREATE EXTENSION IF NOT EXISTS amcheck"))
+    relations = connection.execute(
+        text(
+            "SELECT c.oid::regclass::text, c.relkind, a.amname FROM pg_class c "
+            "JOIN pg_namespace n ON n.oid = c.relnamespace LEFT JOIN pg_am a ON a.oid = c.relam "
+            "WHERE n.nspname = current_schema() AND c.relkind IN ('r', 'i')"
+        )
+    ).all()
+    problems = [] if relations else ["no table or index found to check"]
+    for name, kind, method in relations:
+        try:
+            if kind == "r":
+                found = connection.execute(text("SELECT msg FROM verify_heapam(:name)"), {"name": name}).all()
+                problems += [f"{name}: {row.msg}" for row in found]
+            elif method == "btree":
+                connection.execute(text("SELECT bt_index_check(CAST(:name AS regclass), true)"), {"name": name})
+        except DBAPIError as error:
+            problems.append(f"{name}: {error.orig}")
+    return problems
+
+
+def _integrity_problems(state: AppState) -> list[str]:
+    """The database's own check of its files and indexes, as a crashed installation would be checked."""
+    with state.engine.connect() as connection:
+        if connection.dialect.name == "postgresql":
+            problems = _postgres_integrity_problems(connection)
+            connection.commit()
+            return [f"integrity check: {problem}" for problem in problems]
+        verdict = connection.execute(text("PRAGMA integrity_check")).scalar()
+    return [] if verdict == "ok" else [f"integrity check: {verdict}"]
+
+
 def _check(state: AppState, ledger: Ledger) -> tuple[int, list[str], int]:
     """(acknowledged writes checked, problems, writes or files lost) on the database as the crash left it."""
-    problems: list[str] = []
-    with state.engine.connect() as connection:
-        verdict = connection.execute(text("PRAGMA integrity_check")).scalar()
-    if verdict != "ok":
-        problems.append(f"integrity check: {verdict}")
+    problems = _integrity_problems(state)
     with transaction(state.reader) as session:
         if not verify_chain(session).ok:
             problems.append("the audit chain does not verify")
@@ -217,25 +202,20 @@ def _check(state: AppState, ledger: Ledger) -> tuple[int, list[str], int]:
     return checked, problems, len(lost)
 
 
+@pytest.mark.parametrize("kind", database_kinds())
 def test_sigkill_during_writes_loses_no_acknowledged_write(
-    tmp_path: Path, figures: Figures, monkeypatch: pytest.MonkeyPatch
+    kind: str, tmp_path: Path, figures: Figures, monkeypatch: pytest.MonkeyPatch
 ) -> None:
-    figures.on_database("sqlite")
-    data_dir = tmp_path / "data"
-    url = f"sqlite:///{data_dir / 'tracedesk.sqlite3'}"
+    with fresh_database(kind, tmp_path) as url:
+        _crash_rounds(url, tmp_path / "data", figures, monkeypatch)
+
+
+def _crash_rounds(url: str, data_dir: Path, figures: Figures, monkeypatch: pytest.MonkeyPatch) -> None:
     campaign = build_campaign(url, data_dir)
     box = new_collection(campaign.client("technician"), "Crash box")
     token = campaign.members["reviewer"].token  # may create, upload and edit collections
     campaign.close()
-    env = {
-        **os.environ,
-        "TRACEDESK_DATA_DIR": str(data_dir),
-        "TRACEDESK_DATABASE_URL": url,
-        "TRACEDESK_ENVIRONMENT": "test",
-        "TRACEDESK_SECRET_KEY": campaign.settings.secret_key,
-        "OPENBLAS_NUM_THREADS": "1",
-        "OMP_NUM_THREADS": "1",
-    }
+    env = server_environment(campaign.settings)
     state = build_state(campaign.settings, migrate=False)
     ledger = Ledger(box=box)
     launcher = Launcher(env)
@@ -260,9 +240,11 @@ def test_sigkill_during_writes_loses_no_acknowledged_write(
     left = _strays(state)
     lost_after_sweep = missing_files(state)
     failures += int(swept.exit_code != 0) + int(bool(left)) + int(bool(lost_after_sweep))
+    failures += int(not (ledger.sheets and ledger.edits))
     figures.add(cases=cases + 1, failures=failures, data_lost=data_lost + len(lost_after_sweep))
     state.engine.dispose()
     assert rounds >= MIN_ROUNDS
+    assert ledger.sheets and ledger.edits, "no upload or no edit was acknowledged: the rounds are too short"
     assert not problems, "\n".join(problems[:20])
     assert swept.exit_code == 0, swept.output
     assert not left, f"the sweep left stray files: {sorted(left)[:5]} (before it: {len(strays)})"

@@ -111,13 +111,13 @@ def _fail_second_publish(monkeypatch: pytest.MonkeyPatch, campaign: Campaign) ->
 
 
 def _rows_then_fail(monkeypatch: pytest.MonkeyPatch, campaign: Campaign) -> None:
-    original = ingest._insert_rows
+    original = ingest.insert_rows
 
     def insert_then_fail(*args: Any, **kwargs: Any) -> Any:
         original(*args, **kwargs)  # rows and audit events flushed, then the process "crashes"
         raise InjectedFailure("after the rows were written")
 
-    monkeypatch.setattr(ingest, "_insert_rows", insert_then_fail)
+    monkeypatch.setattr(ingest, "insert_rows", insert_then_fail)
 
 
 SERVER_ERROR = frozenset({500})

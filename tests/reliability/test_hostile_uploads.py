@@ -10,12 +10,11 @@ from __future__ import annotations
 
 import functools
 import json
-import zlib
 
 import pytest
 
 from tests.archive.scans import pdf_bytes, png_bytes
-from tests.imaging.imaging_samples import measure_memory
+from tests.imaging.imaging_samples import measure_memory, pdf_one_page_with_stream, pdf_stream, zlib_bomb
 from tests.reliability.campaign import Campaign, new_collection, row_counts, stored_files, upload
 from tests.reliability.conftest import Figures
 from tests.reliability.hostile_files import Hostile, corpus
@@ -174,32 +173,16 @@ def test_file_over_the_byte_limit_is_refused_while_receiving(
 
 def _pdf_with_image_bomb(side: int) -> bytes:
     """A one-page PDF (100 x 100 pt) drawing a side x side greyscale Flate image (PDF 1.7 sec. 8.9.5)."""
-    compressor = zlib.compressobj(9)
-    row = b"\x00" * side
-    raw = b"".join(compressor.compress(row) for _ in range(side)) + compressor.flush()
-    content = b"q 100 0 0 100 0 0 cm /Im0 Do Q"
-    image = (
-        b"<< /Type /XObject /Subtype /Image /Width %d /Height %d /ColorSpace /DeviceGray /BitsPerComponent 8 "
-        b"/Filter /FlateDecode /Length %d >>\nstream\n" % (side, side, len(raw)) + raw + b"\nendstream"
+    image = pdf_stream(
+        b"/Type /XObject /Subtype /Image /Width %d /Height %d /ColorSpace /DeviceGray /BitsPerComponent 8 "
+        b"/Filter /FlateDecode" % (side, side),
+        zlib_bomb(side * side, fill=0),
     )
-    objects = [
-        b"<< /Type /Catalog /Pages 2 0 R >>",
-        b"<< /Type /Pages /Kids [3 0 R] /Count 1 >>",
-        b"<< /Type /Page /Parent 2 0 R /MediaBox [0 0 100 100] /Resources << /XObject << /Im0 4 0 R >> >> "
-        b"/Contents 5 0 R >>",
-        image,
-        b"<< /Length %d >>\nstream\n" % len(content) + content + b"\nendstream",
-    ]
-    out = bytearray(b"%PDF-1.4\n")
-    offsets = []
-    for number, body in enumerate(objects, start=1):
-        offsets.append(len(out))
-        out += f"{number} 0 obj\n".encode() + body + b"\nendobj\n"
-    xref = len(out)
-    out += f"xref\n0 {len(objects) + 1}\n0000000000 65535 f \n".encode()
-    out += b"".join(f"{offset:010d} 00000 n \n".encode() for offset in offsets)
-    out += f"trailer\n<< /Size {len(objects) + 1} /Root 1 0 R >>\nstartxref\n{xref}\n%%EOF\n".encode()
-    return bytes(out)
+    page = (
+        b"<< /Type /Page /Parent 2 0 R /MediaBox [0 0 100 100] /Resources << /XObject << /Im0 5 0 R >> >> "
+        b"/Contents 4 0 R >>"
+    )
+    return pdf_one_page_with_stream(page, pdf_stream(b"", b"q 100 0 0 100 0 0 cm /Im0 Do Q"), image)
 
 
 def test_pdf_page_drawing_a_400_megapixel_image_renders_at_page_size_in_bounded_memory(

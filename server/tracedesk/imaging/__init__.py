@@ -6,7 +6,8 @@ Typical use by the upload service::
     for sheet in iter_sheets(info):
         files = write_sheet_files(sheet, staging_folder)
 
-Every refusal is an `UploadRefused` subclass carrying `reason`, `http_status` and `code`.
+Every refusal is an `UploadRefused` subclass carrying `reason`, `http_status` and `code`. Page lists of PDFs
+and every pixel decode run in a decoder process with the limits' time and memory caps (`decoder_process`).
 """
 
 from tracedesk.imaging.decode import PageInfo
@@ -20,6 +21,9 @@ from tracedesk.imaging.derivatives import (
 )
 from tracedesk.imaging.errors import (
     CorruptUpload,
+    DecodeMemoryLimit,
+    DecoderStopped,
+    DecodeTimeLimit,
     EncryptedDocument,
     FileTooLarge,
     TooManyPages,
@@ -44,6 +48,9 @@ __all__ = [
     "TILES_DIR_NAME",
     "CorruptUpload",
     "DecodeLimits",
+    "DecodeMemoryLimit",
+    "DecodeTimeLimit",
+    "DecoderStopped",
     "EncryptedDocument",
     "FileTooLarge",
     "ImageFormat",

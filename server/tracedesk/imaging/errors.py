@@ -74,3 +74,42 @@ class UnsupportedImageVariant(UploadRefused):
 
     http_status = 422
     code = "unsupported_image_variant"
+
+
+class DecodeTimeLimit(UploadRefused):
+    """Decoding a page (or reading a PDF's page list) took longer than the configured time limit.
+
+    422: the file is not too large in any declared sense, but it cannot be processed within the limits; a file
+    built to be slow (a PDF page redrawing itself millions of times) ends here.
+    """
+
+    http_status = 422
+    code = "decode_time_limit"
+
+
+class DecodeMemoryLimit(UploadTooLarge):
+    """Decoding a page needed more memory than the decoder process is allowed (a decompression bomb)."""
+
+    code = "decode_memory_limit"
+
+
+class DecoderStopped(CorruptUpload):
+    """The decoder process stopped abnormally on the file without a sign of running out of memory."""
+
+    code = "decoder_stopped"
+
+
+def _with_subclasses(kind: type[UploadRefused]) -> list[type[UploadRefused]]:
+    return [kind, *(sub for child in kind.__subclasses__() for sub in _with_subclasses(child))]
+
+
+def refusal_for(code: str, reason: str) -> UploadRefused:
+    """The refusal of class `code` (an `UploadRefused.code`) with `reason`, as a decoder process reported it.
+
+    Raises
+    ------
+    KeyError
+        No refusal class has that code.
+    """
+    by_code = {kind.code: kind for kind in _with_subclasses(UploadRefused)}
+    return by_code[code](reason)

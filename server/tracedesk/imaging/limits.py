@@ -1,12 +1,19 @@
 """Caps that keep decoding bounded in memory and time, whatever the upload claims about itself.
 
-The defaults match `tracedesk.config.Settings` (512 MiB, 120 Mpx, 500 pages, 300 dpi). 120 Mpx holds an A3 sheet
-at 600 dpi (about 7000 x 9900 px = 69 Mpx) with room to spare; an A0 plot at 300 dpi (139 Mpx) needs a lower
-PDF resolution or a raised cap.
+The defaults match `tracedesk.config.Settings` (512 MiB, 120 Mpx, 500 pages, 300 dpi, 60 s, 2048 MiB). 120 Mpx
+holds an A3 sheet at 600 dpi (about 7000 x 9900 px = 69 Mpx) with room to spare; an A0 plot at 300 dpi
+(139 Mpx) needs a lower PDF resolution or a raised cap.
+
+The size caps are checked from headers and page boxes before anything is decoded. What they cannot bound (a
+PDF page's content stream may inflate to gigabytes or redraw itself millions of times inside a small page box;
+a progressive JPEG may be slow to decode) is bounded by running every decode in a child process with a
+wall-clock time limit and an address-space limit (`tracedesk.imaging.decoder_process`). A 120 Mpx page at 3
+bytes a pixel is 360 MB, so 2048 MiB leaves the renderer room for its own work.
 """
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass
 
 #: Pillow's own bomb threshold (`PIL.Image.MAX_IMAGE_PIXELS`), set once by `tracedesk.imaging.decode`.
@@ -19,6 +26,11 @@ DEFAULT_MAX_PAGES = 500
 #: A 1 x 120 Mpx image passes the pixel cap but would make a pyramid of ~470 000 tiles: cap each side too.
 DEFAULT_MAX_SIDE_PIXELS = 100_000
 DEFAULT_PDF_DPI = 300.0
+DEFAULT_DECODE_SECONDS = 60.0
+DEFAULT_DECODE_MEMORY_BYTES = 2048 * 2**20
+#: Below this the decoder process cannot hold its own libraries (numpy, libvips, PDFium: about 200 MiB of
+#: address space once imported), so a lower limit would refuse every file.
+MIN_DECODE_MEMORY_BYTES = 256 * 2**20
 #: PDFs are rendered between these resolutions (dots per inch); outside them the request is a mistake.
 PDF_DPI_RANGE = (36.0, 1200.0)
 
@@ -38,17 +50,33 @@ class DecodeLimits:
         Most TIFF frames or PDF pages in one file.
     max_side_pixels
         Longest accepted width or height of any page, in pixels.
+    max_decode_seconds
+        Wall-clock time allowed to decode one page (render one PDF page, or survey a PDF), in seconds; the
+        decoder process's processor time is capped too (see `tracedesk.imaging.decoder_process`).
+    max_decode_memory_bytes
+        Address space of the decoder process (RLIMIT_AS), in bytes; at least `MIN_DECODE_MEMORY_BYTES`.
     """
 
     max_file_bytes: int = DEFAULT_MAX_FILE_BYTES
     max_pixels_per_page: int = DEFAULT_MAX_PIXELS_PER_PAGE
     max_pages: int = DEFAULT_MAX_PAGES
     max_side_pixels: int = DEFAULT_MAX_SIDE_PIXELS
+    max_decode_seconds: float = DEFAULT_DECODE_SECONDS
+    max_decode_memory_bytes: int = DEFAULT_DECODE_MEMORY_BYTES
 
     def __post_init__(self) -> None:
         for name in ("max_file_bytes", "max_pixels_per_page", "max_pages", "max_side_pixels"):
             if getattr(self, name) < 1:
                 raise ValueError(f"DecodeLimits.{name} must be a positive integer")
+        if not (math.isfinite(self.max_decode_seconds) and self.max_decode_seconds > 0):
+            raise ValueError(
+                f"DecodeLimits.max_decode_seconds must be a positive number, got {self.max_decode_seconds!r}"
+            )
+        if self.max_decode_memory_bytes < MIN_DECODE_MEMORY_BYTES:
+            raise ValueError(
+                f"DecodeLimits.max_decode_memory_bytes must be at least {MIN_DECODE_MEMORY_BYTES // 2**20} MiB, "
+                f"got {self.max_decode_memory_bytes / 2**20:g} MiB"
+            )
         if self.max_pixels_per_page > PILLOW_PIXEL_CEILING:
             raise ValueError(
                 f"DecodeLimits.max_pixels_per_page={self.max_pixels_per_page} is above the decoder ceiling "

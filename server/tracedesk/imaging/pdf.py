@@ -5,32 +5,30 @@ ceil(width_pt x dpi / 72) x ceil(height_pt x dpi / 72), the same rounding pypdfi
 from the effective page box (crop box, with the page's /Rotate applied) that PDFium reports without parsing the
 page content. A page whose box would exceed the pixel or side cap is refused before any page is rendered.
 
-PDFium is not thread-safe, so every call into it holds `_PDFIUM_LOCK`; uploads from several request threads
-render one page at a time. Rendering time of hostile content is not bounded here: run untrusted PDFs in a
-worker process with a time and memory limit (`tracedesk.jobs`) if that matters for a deployment.
+The page box does not bound what a page costs: its content stream may inflate to gigabytes, or draw a form that
+draws itself ten thousand times. So PDFium never runs in the web process: `read_page_boxes` and
+`rendered_page_rows` run in a decoder process with time and memory limits (`tracedesk.imaging.decoder_tasks`),
+one request at a time, which is also what PDFium (not thread-safe) needs.
 """
 
 from __future__ import annotations
 
 import math
-import threading
 from collections.abc import Iterator
 from contextlib import contextmanager
 from pathlib import Path
 from typing import Any
 
-import numpy as np
 import pypdfium2 as pdfium
 import pypdfium2.raw as pdfium_raw
-import pyvips
 
 from tracedesk.imaging.decode import PageInfo, check_page_size
-from tracedesk.imaging.errors import CorruptUpload, EncryptedDocument, TooManyPages
+from tracedesk.imaging.errors import CorruptUpload, EncryptedDocument
 from tracedesk.imaging.limits import DecodeLimits
 
-_PDFIUM_LOCK = threading.Lock()
 _POINTS_PER_INCH = 72.0
 _WHITE = (255, 255, 255, 255)
+_RGB_BYTES = 3
 
 
 @contextmanager
@@ -61,64 +59,93 @@ def pdf_page_pixels(width_pt: float, height_pt: float, *, pdf_dpi: float) -> tup
     return math.ceil(width_pt * scale), math.ceil(height_pt * scale)
 
 
-def _page_info(document: Any, index: int, *, limits: DecodeLimits, pdf_dpi: float) -> PageInfo:
-    try:
-        width_pt, height_pt = document.get_page_size(index)
-    except pdfium.PdfiumError as exc:
-        raise CorruptUpload(f"page {index + 1} of the PDF is damaged ({exc})") from exc
+def pdf_page_info(index: int, box_pt: tuple[float, float], *, limits: DecodeLimits, pdf_dpi: float) -> PageInfo:
+    """The sheet page `index` (zero-based) of a page box `box_pt` (width, height in points) renders to.
+
+    Raises
+    ------
+    TooManyPixels
+        The box would render over the pixel or side cap at `pdf_dpi`.
+    CorruptUpload
+        The box is not a finite positive size.
+    """
+    width_pt, height_pt = box_pt
     width, height = pdf_page_pixels(width_pt, height_pt, pdf_dpi=pdf_dpi)
     what = f"PDF page {index + 1} ({width_pt:.0f} x {height_pt:.0f} pt) at {pdf_dpi:g} dpi"
     check_page_size(width, height, limits=limits, what=what)
     return PageInfo(index=index, width=width, height=height, dpi=(pdf_dpi, pdf_dpi))
 
 
-def survey_pdf(path: Path, *, limits: DecodeLimits, pdf_dpi: float) -> list[PageInfo]:
-    """Count the pages of a PDF and check each page's rendered size against the caps, rendering nothing.
+def read_page_boxes(path: Path, *, max_pages: int) -> tuple[int, list[tuple[float, float]]]:
+    """The page count of a PDF and, when it is at most `max_pages`, every page's box in points (width, height).
+
+    Runs in the decoder process: opening a hostile PDF can already cost memory (compressed object streams).
 
     Raises
     ------
-    TooManyPages
-        More pages than `limits.max_pages` (checked before any page box is read).
-    TooManyPixels
-        A page box would render over the pixel or side cap at `pdf_dpi`.
     CorruptUpload, EncryptedDocument
-        The document cannot be opened, has no pages, or is password-protected.
+        The document or a page's dictionary cannot be read, or the document is password-protected.
     """
-    with _PDFIUM_LOCK, _open_document(path) as document:
+    with _open_document(path) as document:
         count = len(document)
-        if count < 1:
-            raise CorruptUpload("the PDF has no pages")
-        if count > limits.max_pages:
-            raise TooManyPages(f"the PDF has {count} pages; the limit is {limits.max_pages}")
-        return [_page_info(document, index, limits=limits, pdf_dpi=pdf_dpi) for index in range(count)]
+        if count > max_pages:
+            return count, []  # the caller refuses it; reading thousands of page boxes would be wasted work
+        boxes = []
+        for index in range(count):
+            try:
+                boxes.append(tuple(document.get_page_size(index)))
+            except pdfium.PdfiumError as exc:
+                raise CorruptUpload(f"page {index + 1} of the PDF is damaged ({exc})") from exc
+        return count, boxes
 
 
-def _render_to_array(document: Any, page: PageInfo, *, pdf_dpi: float) -> np.ndarray[Any, Any]:
-    pdf_page = document[page.index]
+def _rows(bitmap: Any) -> list[memoryview]:
+    row_bytes = bitmap.width * _RGB_BYTES
+    buffer = memoryview(bitmap.buffer).cast("B")
+    if bitmap.stride == row_bytes:
+        return [buffer[: row_bytes * bitmap.height]]
+    return [buffer[top : top + row_bytes] for top in range(0, bitmap.stride * bitmap.height, bitmap.stride)]
+
+
+def _render(pdf_page: Any, page: PageInfo, *, pdf_dpi: float) -> Any:
     try:
-        bitmap = pdf_page.render(scale=pdf_dpi / _POINTS_PER_INCH, rev_byteorder=True, fill_color=_WHITE)
-        try:
-            # A contiguous copy we own: the bitmap's buffer is freed when it closes, and rows may be padded.
-            return np.array(bitmap.to_numpy(), dtype=np.uint8, order="C", copy=True)
-        finally:
-            bitmap.close()
+        bitmap = pdf_page.render(
+            scale=pdf_dpi / _POINTS_PER_INCH,
+            rev_byteorder=True,  # PDFium's BGR becomes RGB
+            fill_color=_WHITE,
+            force_bitmap_format=pdfium_raw.FPDFBitmap_BGR,
+        )
     except pdfium.PdfiumError as exc:
         raise CorruptUpload(f"page {page.index + 1} of the PDF cannot be rendered ({exc})") from exc
-    finally:
-        pdf_page.close()
+    if (bitmap.width, bitmap.height, bitmap.n_channels) != (page.width, page.height, _RGB_BYTES):
+        bitmap.close()
+        raise CorruptUpload(
+            f"PDF page {page.index + 1} rendered to an unexpected size {bitmap.width} x {bitmap.height}"
+        )
+    return bitmap
 
 
-def render_pdf_page(path: Path, page: PageInfo, *, pdf_dpi: float) -> Any:
-    """Render one surveyed PDF page to a lazily copied `pyvips.Image` (3-band 8-bit sRGB, white background).
+@contextmanager
+def rendered_page_rows(path: Path, page: PageInfo, *, pdf_dpi: float) -> Iterator[list[memoryview]]:
+    """Render a surveyed page with PDFium on white: its pixels as 8-bit RGB rows (views valid inside the block).
+
+    Runs in the decoder process. The rows are views of PDFium's bitmap, so the page costs its pixels once.
 
     Raises
     ------
     CorruptUpload
         The page cannot be rendered or renders to a size other than its survey said.
     """
-    with _PDFIUM_LOCK, _open_document(path) as document:
-        pixels = _render_to_array(document, page, pdf_dpi=pdf_dpi)
-    if pixels.shape != (page.height, page.width, 3):
-        raise CorruptUpload(f"PDF page {page.index + 1} rendered to an unexpected size {pixels.shape[:2]}")
-    image = pyvips.Image.new_from_memory(pixels.data, page.width, page.height, 3, "uchar")
-    return image.copy(interpretation="srgb")
+    with _open_document(path) as document:
+        try:
+            pdf_page = document[page.index]
+        except pdfium.PdfiumError as exc:
+            raise CorruptUpload(f"page {page.index + 1} of the PDF cannot be loaded ({exc})") from exc
+        try:
+            bitmap = _render(pdf_page, page, pdf_dpi=pdf_dpi)
+            try:
+                yield _rows(bitmap)
+            finally:
+                bitmap.close()
+        finally:
+            pdf_page.close()
