@@ -82,7 +82,7 @@ def _detect(request: Request, sheet_id: int, body: DetectRequest, principal: Pri
         spec = chart_specs.spec_for_detection(session, body)
     result = detect_calibration(load_sheet_image(state.store, derived_key), spec)
     result["stored"] = False
-    if not body.accept or result["kind"] != "cartesian":
+    if not body.accept or "calibration" not in result:  # circular charts without time zero have none
         return result
     if result["confidence"] < body.min_confidence:
         result["warnings"] = [*result["warnings"], f"not stored: confidence below {body.min_confidence}"]
@@ -387,3 +387,12 @@ async def start_batch_run(
 @router.get("/batch-runs/{run_id}", response_model=BatchRunRead)
 def get_batch_run(run_id: int, _: Reader, db: SessionDep) -> BatchRunRead:
     return batch.batch_run_read(db, run_id)
+
+
+@router.post("/batch-runs/{run_id}/resume", response_model=BatchRunRead, status_code=202, responses={409: {}})
+async def resume_batch_run(run_id: int, principal: Manager, request: Request) -> BatchRunRead:
+    """Go on with an interrupted run's pending sheets (finished sheets are not done again)."""
+    state = app_state(request)
+    await run_in_threadpool(batch.resume_batch_run, state, run_id, actor=principal.actor)
+    with transaction(state.reader) as session:
+        return batch.batch_run_read(session, run_id)

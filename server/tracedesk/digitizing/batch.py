@@ -1,43 +1,74 @@
-"""Batch runs: register every sheet from its printed grid, trace each expected pen, fit, score, and decide.
+"""Batch runs: a collection digitizing itself, sheet by sheet, as a background job that can be resumed.
 
-Each sheet is processed without locks and then written in one transaction of its own (calibration, traces, fits
-and the sheet's verdict together), so a run stopped half-way keeps what it finished and resumes with the rest.
-Every automatic result says so in the audit trail ("batch run N"). Sheets whose figures pass the thresholds are
-marked ready for review; the others wait for a person, with the reason shown.
+Each sheet is analysed without locks (:mod:`~tracedesk.digitizing.batch_analysis`: register, trace each
+expected pen, score) and then written in one transaction of its own (:mod:`~tracedesk.digitizing.batch_verdicts`:
+calibration, traces, fits, the sheet's task and the verdict together), so a run stopped half-way keeps what
+it finished and, resumed, goes on with the sheets still pending: no sheet is done twice and no task is made
+twice. Sheets whose figures pass the thresholds become tasks submitted for review; the others wait for a
+person in an open, unassigned task with the reason shown (on the task and on the run's items).
 """
 
 from __future__ import annotations
 
 import json
-from dataclasses import dataclass
 from typing import Any
 
-import numpy as np
 from sqlalchemy import func, select
 from sqlalchemy.orm import Session
 
 from tracedesk.archive.service import get_collection, get_sheet
 from tracedesk.audit.service import Actor, record_event
 from tracedesk.db import transaction
-from tracedesk.digitizing import calibrations, fits, traces
-from tracedesk.digitizing.batch_schemas import BatchItemRead, BatchRunCreate, BatchRunRead, BatchThresholds
+from tracedesk.digitizing.batch_analysis import NEEDS_PERSON, READY, SKIPPED, SheetOutcome, analyse_sheet
+from tracedesk.digitizing.batch_schemas import BatchItemRead, BatchRunCreate, BatchRunRead
+from tracedesk.digitizing.batch_verdicts import (
+    FINISHED_SHEET_STATUSES,
+    batch_actor,
+    finish_item,
+    held_reason,
+    store_outcome,
+)
 from tracedesk.digitizing.chart_specs import get_chart_spec
-from tracedesk.digitizing.detection import detect_calibration
-from tracedesk.digitizing.schemas import AutoRegion, AutoTraceRequest
-from tracedesk.digitizing.service import mark_work_started
+from tracedesk.digitizing.detection import missing_time_zero_fields
 from tracedesk.digitizing.sheet_image import load_sheet_image
-from tracedesk.errors import NotFound, Unprocessable
+from tracedesk.errors import AppError, Conflict, NotFound, Unprocessable
 from tracedesk.jobs.context import JobContext
 from tracedesk.jobs.registry import job_handler
 from tracedesk.jobs.service import submit_job
-from tracedesk.models import BatchRun, BatchRunItem, Sheet
+from tracedesk.models import BatchRun, BatchRunItem, ChartSpec, Job, Sheet, Task
 from tracedesk.models.base import utcnow
 from tracedesk.science.errors import ScienceInputError
-from tracedesk.science.trace_regions import BoxRegion
-from tracedesk.science.tracing import TraceResult
+from tracedesk.science.grid_spec import CircularChartSpec, grid_spec_from_dict
 from tracedesk.web.state import AppState
+from tracedesk.workflow.collection_settings import settings_of
 
-SKIPPED_STATUSES = ("approved", "withdrawn")
+ITEM_STATUSES = ("pending", READY, NEEDS_PERSON, SKIPPED)
+# A run whose job stopped in one of these states before the run finished can be resumed.
+STOPPED_JOB_STATUSES = ("failed", "succeeded")
+
+
+def _check_spec(spec: ChartSpec) -> None:
+    """The spec must describe the printed chart fully enough to register a sheet without a click (422)."""
+    if not spec.geometry:
+        raise Unprocessable(f"chart spec {spec.id} has no printed geometry; batch runs register sheets from it")
+    geometry = grid_spec_from_dict(json.loads(spec.geometry))
+    if isinstance(geometry, CircularChartSpec):
+        missing = missing_time_zero_fields(geometry)
+        if missing:
+            raise Unprocessable(
+                f"chart spec {spec.id} is circular but does not give {', '.join(missing)}: "
+                "without them time zero cannot be found on a sheet without a click"
+            )
+
+
+def _sheet_ids(session: Session, collection_id: int, selection: list[int] | None) -> list[int]:
+    query = select(Sheet.id).where(Sheet.collection_id == collection_id, Sheet.status.not_in(FINISHED_SHEET_STATUSES))
+    if selection is not None:
+        query = query.where(Sheet.id.in_(selection))
+    sheet_ids = list(session.scalars(query.order_by(Sheet.id)))
+    if not sheet_ids:
+        raise Unprocessable("no sheets to process in that collection or selection")
+    return sheet_ids
 
 
 def start_batch_run(state: AppState, collection_id: int, body: BatchRunCreate, *, actor: Actor) -> BatchRun:
@@ -45,14 +76,13 @@ def start_batch_run(state: AppState, collection_id: int, body: BatchRunCreate, *
     with transaction(state.writer) as session:
         get_collection(session, collection_id)
         spec = get_chart_spec(session, body.chart_spec_id)
-        if spec.kind != "cartesian" or not spec.geometry:
-            raise Unprocessable("batch runs need a cartesian chart spec with its printed geometry")
-        query = select(Sheet.id).where(Sheet.collection_id == collection_id, Sheet.status.not_in(SKIPPED_STATUSES))
-        if body.sheet_ids is not None:
-            query = query.where(Sheet.id.in_(body.sheet_ids))
-        sheet_ids = list(session.scalars(query.order_by(Sheet.id)))
-        if not sheet_ids:
-            raise Unprocessable("no sheets to process in that collection or selection")
+        _check_spec(spec)
+        if settings_of(session, collection_id).double_digitization:
+            raise Unprocessable(
+                "this collection uses double digitization (two technicians per sheet); a batch run cannot stand "
+                "in for them"
+            )
+        sheet_ids = _sheet_ids(session, collection_id, body.sheet_ids)
         run = BatchRun(
             collection_id=collection_id, chart_spec_id=spec.id, created_by_id=actor.id, settings=body.model_dump_json()
         )
@@ -67,131 +97,81 @@ def start_batch_run(state: AppState, collection_id: int, body: BatchRunCreate, *
             entity_id=run.id,
             changes={"sheets": {"old": None, "new": len(sheet_ids)}, "chart_spec": {"old": None, "new": spec.id}},
         )
-    job = submit_job(state, "batch_run", {"run_id": run.id}, actor=actor)
-    with transaction(state.writer) as session:
-        stored = session.get(BatchRun, run.id)
-        assert stored is not None
-        stored.job_id = job.id
+    _queue(state, run.id, actor=actor)
     return run
 
 
-@dataclass
-class SheetOutcome:
-    status: str
-    score: dict[str, Any]
-    reason: str
-    detection: dict[str, Any] | None
-    traces: list[tuple[AutoTraceRequest, TraceResult]]
+def _queue(state: AppState, run_id: int, *, actor: Actor) -> None:
+    job = submit_job(state, "batch_run", {"run_id": run_id}, actor=actor)
+    with transaction(state.writer) as session:
+        stored = session.get(BatchRun, run_id)
+        assert stored is not None
+        stored.job_id = job.id
 
 
-def _region(detection: dict[str, Any]) -> AutoRegion:
-    pixels = np.asarray([point["pixel"] for point in detection["control_points"]], dtype=np.float64)
-    return AutoRegion(
-        box=[float(pixels[:, 0].min()), float(pixels[:, 1].min()), float(pixels[:, 0].max()), float(pixels[:, 1].max())]
-    )
-
-
-def _verdict(score: dict[str, Any], thresholds: BatchThresholds) -> str:
-    """Empty when every figure passes; otherwise the first reason a person must look."""
-    if score["confidence"] < thresholds.min_confidence:
-        return f"registration confidence {score['confidence']:.2f} is below {thresholds.min_confidence}"
-    if score["registration_rms_px"] > thresholds.max_registration_rms_px:
-        return f"registration RMS {score['registration_rms_px']:.2f} px exceeds {thresholds.max_registration_rms_px}"
-    for pen in score["pens"]:
-        if "error" in pen:
-            return f"pen {pen['name']}: {pen['error']}"
-        if pen["coverage"] < thresholds.min_coverage:
-            return f"pen {pen['name']}: coverage {pen['coverage']:.2f} is below {thresholds.min_coverage}"
-        if pen["gaps"] > thresholds.max_gaps:
-            return f"pen {pen['name']}: {pen['gaps']} gaps (more than {thresholds.max_gaps})"
-    return ""
-
-
-def analyse_sheet(image: np.ndarray, geometry: dict[str, Any], body: BatchRunCreate) -> SheetOutcome:
-    """Register and trace one sheet (no database): the outcome to store."""
-    try:
-        detection = detect_calibration(image, geometry)
-    except ScienceInputError as error:
-        return SheetOutcome("needs_person", {}, f"registration refused: {error}", None, [])
-    region = _region(detection)
-    assert region.box is not None
-    box = BoxRegion(*region.box)
-    score: dict[str, Any] = {
-        "confidence": detection["confidence"],
-        "orientation": detection["orientation"],
-        "registration_rms_px": detection["residuals"]["rms_px"] or 0.0,
-        "pens": [],
-    }
-    found = []
-    for pen in body.pens:
-        request = AutoTraceRequest(
-            name=pen.name, unit=pen.unit, pen_color=pen.pen_color, region=region, tolerance=pen.tolerance
-        )
-        try:
-            result = traces.run_auto_trace(image, box, request)
-        except ScienceInputError as error:
-            score["pens"].append({"name": pen.name, "error": str(error)})
-            continue
-        score["pens"].append(
-            {
-                "name": pen.name,
-                "coverage": result.coverage,
-                "gaps": len(result.gap_spans),
-                "median_confidence": float(np.median(result.confidence)) if len(result.confidence) else 0,
-            }
-        )
-        found.append((request, result))
-    reason = _verdict(score, body.thresholds)
-    return SheetOutcome("needs_person" if reason else "ready_for_review", score, reason, detection, found)
-
-
-def _store_outcome(
-    session: Session, run: BatchRun, item: BatchRunItem, outcome: SheetOutcome, body: BatchRunCreate, actor: Actor
-) -> None:
-    cause = f"batch run {run.id}, automatic"
-    sheet = get_sheet(session, item.sheet_id).sheet
-    if outcome.detection is not None and calibrations.calibration_of(session, sheet.id) is not None:
-        outcome.status, outcome.reason = "needs_person", "the sheet already has a calibration; it was not replaced"
-    elif outcome.detection is not None:
-        calibrations.put_calibration(
+def resume_batch_run(state: AppState, run_id: int, *, actor: Actor) -> BatchRun:
+    """Queue a new job for a run whose job stopped before the run finished (409 when there is nothing to do)."""
+    with transaction(state.writer) as session:
+        run = session.get(BatchRun, run_id, with_for_update=True)
+        if run is None:
+            raise NotFound(f"no batch run with id {run_id}")
+        if run.status == "finished":
+            raise Conflict(f"batch run {run_id} has finished; there is nothing to resume")
+        job = session.get(Job, run.job_id) if run.job_id is not None else None
+        if job is not None and job.status not in STOPPED_JOB_STATUSES:
+            raise Conflict(f"batch run {run_id} is still {job.status} (job {job.id})")
+        run.status = "queued"
+        pending = item_counts(session, run_id)["pending"]
+        record_event(
             session,
-            sheet,
-            outcome.detection["calibration"],
             actor=actor,
-            reason=f"{cause} (confidence {outcome.detection['confidence']:.2f})",
-            origin="automatic",
+            action="resume_batch",
+            entity_type="batch_run",
+            entity_id=run.id,
+            changes={"pending": {"old": None, "new": pending}},
         )
-        for request, result in outcome.traces:
-            trace = traces.store_auto_trace(session, sheet, request, result, actor=actor, reason=cause)
-            if body.fit is not None:
-                _fit(session, trace, body, outcome, actor, cause)
-        mark_work_started(session, sheet, actor=actor)
-    item.status, item.reason, item.finished_at = outcome.status, outcome.reason, utcnow()
-    item.score = json.dumps(outcome.score)
-    record_event(
-        session,
-        actor=actor,
-        action="batch_verdict",
-        entity_type="sheet",
-        entity_id=sheet.id,
-        changes={"verdict": {"old": None, "new": outcome.status}},
-        reason=outcome.reason or cause,
+    _queue(state, run_id, actor=actor)
+    return run
+
+
+def _pending(session: Session, run_id: int) -> list[tuple[int, int]]:
+    items = session.scalars(
+        select(BatchRunItem)
+        .where(BatchRunItem.run_id == run_id, BatchRunItem.status == "pending")
+        .order_by(BatchRunItem.id)
     )
+    return [(item.id, item.sheet_id) for item in items]
 
 
-def _fit(session: Session, trace: Any, body: BatchRunCreate, outcome: SheetOutcome, actor: Actor, cause: str) -> None:
-    options = {key: value for key, value in (body.fit or {}).items() if key != "family"}
-    session.flush()
+def _process(
+    state: AppState, run_id: int, item_id: int, sheet_id: int, body: BatchRunCreate, spec: dict[str, Any]
+) -> None:
+    """One sheet: skip it if people hold it, else analyse it without locks and store the outcome."""
+    with transaction(state.reader) as session:
+        sheet = get_sheet(session, sheet_id).sheet
+        derived_key, held = sheet.derived_key, held_reason(session, sheet)
+    if held:
+        outcome = SheetOutcome(SKIPPED, {}, held)
+    else:
+        outcome = analyse_sheet(load_sheet_image(state.store, derived_key), spec, body)
     try:
-        fit = fits.create_fit(session, trace, str((body.fit or {}).get("family")), options, actor=actor, reason=cause)
-    except (ScienceInputError, Unprocessable) as error:
-        outcome.status, outcome.reason = "needs_person", f"fit of {trace.name} failed: {error}"
-        return
-    r_squared = json.loads(fit.result)["stats"].get("r_squared")
-    outcome.score.setdefault("fits", []).append({"trace": trace.name, "r_squared": r_squared})
-    floor = body.thresholds.min_r_squared
-    if floor is not None and (r_squared is None or r_squared < floor) and outcome.status == "ready_for_review":
-        outcome.status, outcome.reason = "needs_person", f"fit of {trace.name}: R² {r_squared} is below {floor}"
+        _store(state, run_id, item_id, outcome, body)
+    except (AppError, ScienceInputError) as error:  # e.g. a calibration the service refuses: a person decides
+        reason = f"the automatic result could not be stored: {getattr(error, 'message', error)}"
+        _store(state, run_id, item_id, SheetOutcome(NEEDS_PERSON, outcome.score, reason), body)
+
+
+def _store(state: AppState, run_id: int, item_id: int, outcome: SheetOutcome, body: BatchRunCreate) -> None:
+    with transaction(state.writer) as session:
+        run = session.get(BatchRun, run_id)
+        item = session.get(BatchRunItem, item_id)
+        assert run is not None and item is not None
+        if item.status != "pending":  # another worker finished it meanwhile
+            return
+        if outcome.status == SKIPPED:
+            finish_item(session, item, outcome, actor=batch_actor(run_id), cause=f"batch run {run_id}, automatic")
+        else:
+            store_outcome(session, run, item, outcome, body)
 
 
 @job_handler("batch_run")
@@ -204,25 +184,11 @@ def batch_run_job(context: JobContext) -> dict[str, Any]:
             raise NotFound(f"no batch run with id {run_id}")
         run.status = "running"
         body = BatchRunCreate.model_validate_json(run.settings)
-        geometry = json.loads(get_chart_spec(session, run.chart_spec_id).geometry or "{}")
-        pending = [
-            (item.id, item.sheet_id)
-            for item in session.scalars(
-                select(BatchRunItem)
-                .where(BatchRunItem.run_id == run_id, BatchRunItem.status == "pending")
-                .order_by(BatchRunItem.id)
-            )
-        ]
+        spec = json.loads(get_chart_spec(session, run.chart_spec_id).geometry or "{}")
+        pending = _pending(session, run_id)
     for done, (item_id, sheet_id) in enumerate(pending):
         context.progress(done / max(len(pending), 1), f"sheet {done + 1} of {len(pending)}")
-        with transaction(state.reader) as session:
-            derived_key = get_sheet(session, sheet_id).sheet.derived_key
-        outcome = analyse_sheet(load_sheet_image(state.store, derived_key), geometry, body)
-        with transaction(state.writer) as session:
-            run = session.get(BatchRun, run_id)
-            item = session.get(BatchRunItem, item_id)
-            assert run is not None and item is not None
-            _store_outcome(session, run, item, outcome, body, context.actor)
+        _process(state, run_id, item_id, sheet_id, body, spec)
 
     def finish(session: Session) -> dict[str, Any]:
         run = session.get(BatchRun, run_id)
@@ -237,33 +203,48 @@ def item_counts(session: Session, run_id: int) -> dict[str, int]:
     rows = session.execute(
         select(BatchRunItem.status, func.count()).where(BatchRunItem.run_id == run_id).group_by(BatchRunItem.status)
     )
-    counts = {"pending": 0, "ready_for_review": 0, "needs_person": 0}
+    counts = dict.fromkeys(ITEM_STATUSES, 0)
     counts.update({status: int(count) for status, count in rows})
     return counts
+
+
+def _run_status(session: Session, run: BatchRun) -> str:
+    """The stored status, or ``"interrupted"`` when the run's job stopped before the run finished."""
+    if run.status == "finished" or run.job_id is None:
+        return run.status
+    job = session.get(Job, run.job_id)
+    return "interrupted" if job is not None and job.status in STOPPED_JOB_STATUSES else run.status
 
 
 def batch_run_read(session: Session, run_id: int) -> BatchRunRead:
     run = session.get(BatchRun, run_id)
     if run is None:
         raise NotFound(f"no batch run with id {run_id}")
-    items = session.scalars(select(BatchRunItem).where(BatchRunItem.run_id == run_id).order_by(BatchRunItem.id))
+    rows = session.execute(
+        select(BatchRunItem, Task)
+        .outerjoin(Task, Task.sheet_id == BatchRunItem.sheet_id)
+        .where(BatchRunItem.run_id == run_id)
+        .order_by(BatchRunItem.id)
+    ).all()
     return BatchRunRead(
         id=run.id,
         collection_id=run.collection_id,
         chart_spec_id=run.chart_spec_id,
-        status=run.status,
+        status=_run_status(session, run),
         job_id=run.job_id,
         counts=item_counts(session, run_id),
         settings=json.loads(run.settings),
         items=[
             BatchItemRead(
-                sheet_id=i.sheet_id,
-                status=i.status,
-                score=json.loads(i.score),
-                reason=i.reason,
-                finished_at=i.finished_at,
+                sheet_id=item.sheet_id,
+                status=item.status,
+                score=json.loads(item.score),
+                reason=item.reason,
+                finished_at=item.finished_at,
+                task_id=task.id if task is not None else None,
+                task_state=task.state if task is not None else None,
             )
-            for i in items
+            for item, task in rows
         ],
         created_at=run.created_at,
         finished_at=run.finished_at,

@@ -23,7 +23,10 @@ class BatchThresholds(BaseModel):
     min_confidence: float = Field(default=0.6, ge=0, le=1, description="registration confidence")
     max_registration_rms_px: float = Field(default=1.0, gt=0, description="calibration RMS at the grid points")
     min_coverage: float = Field(default=0.9, ge=0, le=1, description="fraction of the traced span with pen")
-    max_gaps: int = Field(default=5, ge=0, description="gaps per pen")
+    max_gaps: int = Field(default=5, ge=0, description="gaps per pen longer than min_gap_fraction of the chart")
+    min_gap_fraction: float = Field(
+        default=0.01, ge=0, le=1, description="shorter gaps (a pen crossing a grid line) are counted apart"
+    )
     min_r_squared: float | None = Field(default=None, ge=0, le=1, description="fit quality, when a fit is asked")
 
 
@@ -37,14 +40,22 @@ class BatchRunCreate(BaseModel):
 
 
 class BatchItemRead(BaseModel):
+    """One sheet's verdict: ``pending``, ``ready_for_review`` (its task is submitted for review),
+    ``needs_person`` (its task waits, open, with ``reason``) or ``skipped`` (people hold the sheet; ``reason``
+    says how)."""
+
     sheet_id: int
     status: str
     score: dict[str, Any]
     reason: str
     finished_at: datetime | None
+    task_id: int | None = Field(description="the sheet's task, whoever made it")
+    task_state: str | None
 
 
 class BatchRunRead(BaseModel):
+    """A run: ``queued``, ``running``, ``finished``, or ``interrupted`` (its job stopped; resume it)."""
+
     id: int
     collection_id: int
     chart_spec_id: int

@@ -17,7 +17,8 @@
 5. the radius law (radius linear in the value axis' chart coordinate) gives the radii of the frame
    values, ready for a ``circular`` calibration's ``value_axis``.
 
-The time zero and period still come from the user (time lines are printed alike all round).
+The time zero comes from the printed time lines and the spec's reference angle
+(:mod:`~tracedesk.science.time_lines`, put together in :mod:`~tracedesk.science.circular_registration`).
 
 JSON shape of :meth:`CircularDetection.to_dict`::
 
@@ -370,7 +371,9 @@ def _radius_law(spec: CircularChartSpec, values: FloatArray, radii: dict[int, fl
     return float(slope * ends[0] + intercept), float(slope * ends[1] + intercept), law_rms
 
 
-def detect_circular_chart(image: NDArray[np.uint8], spec: CircularChartSpec) -> CircularDetection:
+def detect_circular_chart(
+    image: NDArray[np.uint8], spec: CircularChartSpec, *, model: GridColourModel | None = None
+) -> CircularDetection:
     """Find the centre and the value rings of a circular chart (module docstring).
 
     Parameters
@@ -379,6 +382,8 @@ def detect_circular_chart(image: NDArray[np.uint8], spec: CircularChartSpec) -> 
         The sheet, sRGB, in stored-image pixels.
     spec : CircularChartSpec
         The chart's printed geometry.
+    model : GridColourModel, optional
+        The sheet's grid colour model, when the caller has built it already.
 
     Raises
     ------
@@ -387,9 +392,10 @@ def detect_circular_chart(image: NDArray[np.uint8], spec: CircularChartSpec) -> 
     """
     array = _check_image(image)
     block = max(1, math.ceil(max(array.shape[:2]) / COARSE_CELLS))
-    model = grid_colour_model_for(
-        array, grid_colour=spec.grid_colour, tolerance=spec.colour_tolerance, pen_colours=spec.pen_colours
-    )
+    if model is None:
+        model = grid_colour_model_for(
+            array, grid_colour=spec.grid_colour, tolerance=spec.colour_tolerance, pen_colours=spec.pen_colours
+        )
     points = _ring_points(array, model, block, spec)
     coarse_centre = find_centre(points, bin_px=float(block), reach_px=0.15 * min(array.shape[:2]))
     radius = np.hypot(points.u - coarse_centre[0], points.v - coarse_centre[1])

@@ -30,7 +30,14 @@ JSON shapes (``?`` marks optional fields; colours are ``"#rrggbb"``)::
                 "ring_radii_mm": [radius of the frame[0] ring, radius of the frame[1] ring],
                 "period_hours": P, "time_line_hours"?: h, "time_major_hours"?: H,
                 "time_lines"?: "radial" | "arcs", "arc_radius_mm"?: L (arcs: the pen arm length),
+                "pivot_distance_mm"?: D (arcs: pen pivot to chart centre; default L, arcs through the centre),
+                "time_zero_angle_deg"?: a, "time_direction"?: "clockwise" | "counterclockwise",
                 "grid_colour": colour, "pen_colours"?: [colour, ...], "colour_tolerance"?: dE}
+
+``time_zero_angle_deg`` is the spec's reference line: the image angle (degrees, clockwise on the screen
+from 3 o'clock) at which the time-zero line meets the ring of ``value_axis.frame[1]`` on an upright
+sheet. With ``time_line_hours`` and ``time_direction`` it lets a batch run place time zero on a scan
+(:mod:`tracedesk.science.time_lines`).
 
 ``colour_tolerance`` is the largest CIELAB distance (CIE76) of a pixel from the paper-to-grid colour
 line that still counts as grid ink. Errors are :class:`~tracedesk.science.errors.ScienceInputError`
@@ -59,6 +66,15 @@ RING_SCALES: Final = ("linear", "log10", "sqrt")
 X_DIRECTIONS: Final = ("right", "left")
 Y_DIRECTIONS: Final = ("up", "down")
 TIME_LINE_SHAPES: Final = ("radial", "arcs")
+TIME_DIRECTIONS: Final = ("clockwise", "counterclockwise")
+OPTIONAL_CIRCULAR_FIELDS: Final = (
+    "time_line_hours",
+    "time_major_hours",
+    "arc_radius_mm",
+    "pivot_distance_mm",
+    "time_zero_angle_deg",
+    "time_direction",
+)
 DEFAULT_COLOUR_TOLERANCE: Final = 30.0
 DEFAULT_DECADE_LINES: Final = (1.0, 2.0, 3.0, 4.0, 5.0, 6.0, 7.0, 8.0, 9.0)
 # More lines than this on one axis is not a printed chart but a mistake in the spec.
@@ -223,6 +239,14 @@ class CircularChartSpec:
         ``"radial"`` (straight lines through the centre) or ``"arcs"`` (drawn by the pen arm).
     arc_radius_mm : float or None
         Radius of the time arcs (the pen arm length, mm).
+    pivot_distance_mm : float or None
+        Distance (mm) of the pen arm's pivot from the chart centre (None: ``arc_radius_mm``, so the
+        time arcs pass through the centre).
+    time_zero_angle_deg : float or None
+        Image angle (degrees, clockwise on the screen from +u) where the time-zero line meets the ring
+        of ``value_axis.frame[1]`` on an upright sheet.
+    time_direction : str or None
+        ``"clockwise"`` or ``"counterclockwise"``: the side on which later times lie, as seen on the image.
     grid_colour : str
         Colour of the rings and time lines, ``"#rrggbb"``.
     pen_colours : tuple of str
@@ -239,6 +263,9 @@ class CircularChartSpec:
     time_major_hours: float | None = None
     time_lines: str = "radial"
     arc_radius_mm: float | None = None
+    pivot_distance_mm: float | None = None
+    time_zero_angle_deg: float | None = None
+    time_direction: str | None = None
     pen_colours: tuple[str, ...] = ()
     colour_tolerance: float = DEFAULT_COLOUR_TOLERANCE
 
@@ -246,6 +273,12 @@ class CircularChartSpec:
     def kind(self) -> str:
         """``"circular"``."""
         return "circular"
+
+    def pivot_distance(self) -> float | None:
+        """Distance (mm) of the pen pivot from the centre for arc-shaped time lines (None for radial lines)."""
+        if self.time_lines != "arcs" or self.arc_radius_mm is None:
+            return None
+        return self.pivot_distance_mm if self.pivot_distance_mm is not None else self.arc_radius_mm
 
     def ring_radii_of(self, chart: FloatArray) -> FloatArray:
         """Printed radii (mm) of rings at linear chart coordinates ``chart`` of the value axis."""
@@ -266,7 +299,7 @@ class CircularChartSpec:
             "pen_colours": list(self.pen_colours),
             "colour_tolerance": self.colour_tolerance,
         }
-        for key in ("time_line_hours", "time_major_hours", "arc_radius_mm"):
+        for key in OPTIONAL_CIRCULAR_FIELDS:
             if getattr(self, key) is not None:
                 out[key] = getattr(self, key)
         return out
@@ -430,6 +463,10 @@ def _circular_from_dict(spec: Mapping[str, Any]) -> CircularChartSpec:
     if min(radii) <= 0 or radii[0] == radii[1]:
         raise ScienceInputError("ring_radii_mm: two different radii > 0 are needed")
     time_lines = _option(spec.get("time_lines", "radial"), field="time_lines", options=TIME_LINE_SHAPES)
+    direction = spec.get("time_direction")
+    if direction is not None:
+        direction = _option(direction, field="time_direction", options=TIME_DIRECTIONS)
+    zero_angle = spec.get("time_zero_angle_deg")
     return CircularChartSpec(
         value_axis=axis_grid_from_dict(spec.get("value_axis"), field="value_axis", scales=RING_SCALES, directions=()),
         ring_radii_mm=(radii[0], radii[1]),
@@ -439,6 +476,9 @@ def _circular_from_dict(spec: Mapping[str, Any]) -> CircularChartSpec:
         time_major_hours=_optional_number(spec, "time_major_hours", prefix=""),
         time_lines=time_lines,
         arc_radius_mm=_optional_number(spec, "arc_radius_mm", prefix=""),
+        pivot_distance_mm=_optional_number(spec, "pivot_distance_mm", prefix=""),
+        time_zero_angle_deg=None if zero_angle is None else _number(zero_angle, field="time_zero_angle_deg"),
+        time_direction=direction,
         pen_colours=pens,
         colour_tolerance=tolerance,
     )

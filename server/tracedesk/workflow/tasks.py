@@ -314,6 +314,45 @@ def take_action(session: Session, task: Task, action: str, *, user: User, reason
     return task
 
 
+def submit_automatic(session: Session, task: Task, *, actor: Actor, reason: str) -> Task:
+    """Start and submit an open task for review on behalf of an automatic digitizer (a batch run).
+
+    ``actor`` is the run itself (no user id), so the digitization has no human author and any reviewer may
+    sign it (four eyes: the machine wrote it, a person approves it). The state machine still applies (409
+    from any state but open or returned); double digitization needs two people's work, so it is refused.
+    """
+    if task.double_digitization:
+        raise Conflict("a task with double digitization needs two technicians' work; it cannot be submitted by a batch")
+    if calibration_of(session, task.sheet_id) is None or not traces_of_sheet(session, task.sheet_id):
+        raise Unprocessable("nothing to submit yet: the sheet needs a calibration and traces")
+    for action in ("start", "submit"):
+        transition = check_transition(task.state, action)
+        before = _values(task)
+        task.state = transition.target
+        if action == "submit":
+            task.technician_submitted = True
+            task.submitted_at = utcnow()
+        task.version += 1
+        task.updated_at = utcnow()
+        _audit(session, task, actor=actor, action=action, changes=field_changes(before, _values(task)), reason=reason)
+    sync_sheet_status(session, task, actor=actor, cause=f"task {task.id} submitted")
+    _notify_transition(session, task, "submit", actor=actor, reason=None)
+    return task
+
+
+def flag_for_attention(session: Session, task: Task, *, actor: Actor, reason: str) -> Task:
+    """Record on an open task why a person must look at the sheet (a batch run's verdict), audited."""
+    if task.state not in transition_for("start").sources:
+        raise Conflict(f"only an open or returned task waits for a person; task {task.id} is {task.state}")
+    if task.reason == reason:
+        return task
+    old, task.reason = task.reason, reason
+    task.version += 1
+    task.updated_at = utcnow()
+    _audit(session, task, actor=actor, action="flag", changes={"reason": {"old": old, "new": reason}}, reason=reason)
+    return task
+
+
 def _notify_transition(session: Session, task: Task, action: str, *, actor: Actor, reason: str | None) -> None:
     technicians = [task.technician_id, task.second_technician_id]
     sheet = f"sheet {task.sheet_id} (task {task.id})"
