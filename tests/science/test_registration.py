@@ -19,14 +19,13 @@ from skimage.transform import AffineTransform, PolynomialTransform, ProjectiveTr
 from tracedesk.science.axes import LinearScale
 from tracedesk.science.calibration import CartesianCalibration, calibrate_cartesian
 from tracedesk.science.errors import ScienceInputError
+from tracedesk.science.quadratic_transform import QuadraticTransform, quadratic_monomials
 from tracedesk.science.registration import (
     TRANSFORM_MIN_POINTS,
     TRANSFORM_NAMES,
     MatrixTransform,
-    QuadraticTransform,
     fit_transform,
     inspect_control_points,
-    quadratic_monomials,
 )
 
 FloatArray = NDArray[np.float64]
@@ -204,7 +203,7 @@ def test_round_trips_hold_to_1e_9_px(name: str, seed: int, u: float, v: float) -
     assert_allclose(back, there, rtol=0, atol=1e-9)
 
 
-def test_polynomial_inverse_converges_from_the_affine_start() -> None:
+def test_polynomial_inverse_converges_where_the_map_bends_by_tens_of_pixels() -> None:
     """Newton must land on the chart -> pixel preimage even where the map bends by tens of pixels."""
     rng = np.random.default_rng(19)
     pixels = _pixels(rng, 16)

@@ -62,6 +62,7 @@ from tracedesk.science.axes import (
 )
 from tracedesk.science.circular import ArcStraightening, CircularCalibration, PenArm, RadiusLaw
 from tracedesk.science.errors import ScienceInputError
+from tracedesk.science.homogeneous import invert_homogeneous_matrix
 from tracedesk.science.registration import (
     MAX_MAGNITUDE,
     MatrixTransform,
@@ -74,7 +75,6 @@ from tracedesk.science.registration import (
     empty_residual_report,
     fit_transform,
     inspect_control_points,
-    invert_homogeneous_matrix,
     residual_report,
     root_mean_square,
     spread_ratio,

@@ -16,7 +16,7 @@ Every fit works on Hartley-normalised coordinates (centroid at the origin, RMS d
 normal equations stay well conditioned whatever the pixel and chart magnitudes. Fits minimise the squared
 chart-coordinate error of pixels -> chart (ordinary least squares; the DLT algebraic error for the
 projective model). Every transform has an exact inverse: closed form for the matrix models, Newton
-iterations for the polynomial.
+iterations for the polynomial (:mod:`tracedesk.science.quadratic_transform`).
 
 References
 ----------
@@ -39,6 +39,8 @@ from scipy.sparse.csgraph import connected_components
 from scipy.spatial import cKDTree
 
 from tracedesk.science.errors import ScienceInputError
+from tracedesk.science.homogeneous import apply_homogeneous_matrix, invert_homogeneous_matrix
+from tracedesk.science.quadratic_transform import QuadraticTransform, fit_quadratic_start, quadratic_monomials
 
 FloatArray = NDArray[np.float64]
 BoolArray = NDArray[np.bool_]
@@ -62,10 +64,8 @@ EXACT_FIT_PREFERENCE_PX: Final = 1.0
 # A residual stands out when it exceeds this multiple of the median residual and the floor below.
 OUTLIER_MEDIAN_FACTOR: Final = 3.0
 OUTLIER_FLOOR_PX: Final = 0.5
-NEWTON_TOLERANCE_PX: Final = 1e-12
 # Coordinates and geometry beyond this size are refused: their squares would overflow float64.
 MAX_MAGNITUDE: Final = 1e100
-NEWTON_MAX_ITERATIONS: Final = 50
 
 
 def as_point_array(points: ArrayLike, *, field: str = "points", finite: bool = False) -> FloatArray:
@@ -119,40 +119,6 @@ class PlaneTransform(Protocol):
         ...
 
 
-def apply_homogeneous_matrix(matrix: FloatArray, points: FloatArray) -> FloatArray:
-    """Apply a 3x3 homogeneous matrix to points (n, 2); no division when the bottom row is (0, 0, 1).
-
-    Written with element-wise operations: numpy's (n, 2) @ (2, 2) product is several times slower and
-    its timing erratic.
-    """
-    u, v = points[:, 0], points[:, 1]
-    result = np.empty((points.shape[0], 2))
-    for row in (0, 1):
-        column = result[:, row]
-        np.multiply(u, matrix[row, 0], out=column)
-        column += v * matrix[row, 1]
-        column += matrix[row, 2]
-    if matrix[2, 0] == 0.0 and matrix[2, 1] == 0.0 and matrix[2, 2] == 1.0:
-        return result
-    with np.errstate(divide="ignore", invalid="ignore"):
-        weight = u * matrix[2, 0]
-        weight += v * matrix[2, 1]
-        weight += matrix[2, 2]
-        result /= weight[:, None]
-    return result
-
-
-def invert_homogeneous_matrix(matrix: FloatArray) -> FloatArray:
-    """Inverse of a homogeneous matrix; exact zeros kept in the bottom row of affine matrices."""
-    if matrix[2, 0] == 0.0 and matrix[2, 1] == 0.0 and matrix[2, 2] == 1.0:
-        inverse = np.eye(3)
-        inverse[:2, :2] = np.linalg.inv(matrix[:2, :2])
-        inverse[:2, 2] = -inverse[:2, :2] @ matrix[:2, 2]
-        return inverse
-    general = np.asarray(np.linalg.inv(matrix), dtype=np.float64)
-    return general / general[2, 2] if general[2, 2] != 0.0 else general
-
-
 def normalising_matrix(points: FloatArray) -> FloatArray:
     """Hartley normalisation: 3x3 matrix moving the centroid to 0 and the RMS distance to sqrt(2)."""
     centre = points.mean(axis=0)
@@ -204,121 +170,6 @@ def _matrix_transform(
         forward[2] = (0.0, 0.0, 1.0)
         inverse[2] = (0.0, 0.0, 1.0)
     return MatrixTransform(name=name, forward_matrix=forward, inverse_matrix=inverse)
-
-
-def quadratic_monomials(points: FloatArray) -> FloatArray:
-    """Monomials (1, u, v, u^2, u v, v^2) of each point, shape (n, 6)."""
-    u, v = points[:, 0], points[:, 1]
-    return np.stack([np.ones_like(u), u, v, u * u, u * v, v * v], axis=1)
-
-
-def _quadratic_values(coefficients: FloatArray, u: FloatArray, v: FloatArray) -> tuple[FloatArray, FloatArray]:
-    """Both rows of the quadratic map with coefficients (2, 6), element-wise (no (n, 6) matrix)."""
-    uu, uv, vv = u * u, u * v, v * v
-    rows = []
-    for a in coefficients:
-        value = u * a[1]
-        value += v * a[2]
-        value += uu * a[3]
-        value += uv * a[4]
-        value += vv * a[5]
-        value += a[0]
-        rows.append(value)
-    return rows[0], rows[1]
-
-
-def _quadratic_jacobian(coefficients: FloatArray, u: FloatArray, v: FloatArray) -> tuple[FloatArray, ...]:
-    """d(row)/du and d(row)/dv of both rows: (j00, j01, j10, j11)."""
-    parts = []
-    for a in coefficients:
-        parts.append(a[1] + (2.0 * a[3]) * u + a[4] * v)
-        parts.append(a[2] + a[4] * u + (2.0 * a[5]) * v)
-    return tuple(parts)
-
-
-@dataclass(frozen=True, eq=False)
-class QuadraticTransform:
-    """Second-order polynomial transform pixels -> chart coordinates, with a Newton inverse.
-
-    Attributes
-    ----------
-    coefficients : ndarray, shape (2, 6)
-        Coefficients of (1, u, v, u^2, u v, v^2) in normalised coordinates, one row per chart axis.
-    pixel_normaliser, chart_normaliser : ndarray, shape (3, 3)
-        Hartley normalisations of the control points' pixels and chart coordinates.
-    affine_start : ndarray, shape (3, 3)
-        Normalised chart -> normalised pixel matrix (inverse of an affine fit) seeding the Newton solve.
-    """
-
-    coefficients: FloatArray
-    pixel_normaliser: FloatArray
-    chart_normaliser: FloatArray
-    affine_start: FloatArray
-
-    @property
-    def name(self) -> str:
-        """``"polynomial2"``."""
-        return "polynomial2"
-
-    def pixels_to_chart(self, pixels: FloatArray) -> FloatArray:
-        """Linear chart coordinates of pixels (px), shape (n, 2)."""
-        normalised = apply_homogeneous_matrix(self.pixel_normaliser, pixels)
-        chart = np.column_stack(_quadratic_values(self.coefficients, normalised[:, 0], normalised[:, 1]))
-        return apply_homogeneous_matrix(invert_homogeneous_matrix(self.chart_normaliser), chart)
-
-    def chart_to_pixels(self, chart: FloatArray) -> FloatArray:
-        """Pixels (px) of chart coordinates by Newton iteration, to 1e-12 px or float resolution.
-
-        Points where the iteration does not converge (outside the region where the polynomial can be
-        inverted) come back as NaN.
-        """
-        target = apply_homogeneous_matrix(self.chart_normaliser, chart)
-        start = apply_homogeneous_matrix(self.affine_start, target)
-        solved = _newton_quadratic(self.coefficients, target, start, pixel_normaliser=self.pixel_normaliser)
-        return apply_homogeneous_matrix(invert_homogeneous_matrix(self.pixel_normaliser), solved)
-
-
-def _newton_step(
-    coefficients: FloatArray, u: FloatArray, v: FloatArray, target_u: FloatArray, target_v: FloatArray
-) -> tuple[FloatArray, FloatArray, FloatArray]:
-    """One Newton step towards quadratic(u, v) = target: new u, new v and the step length (normalised)."""
-    f0, f1 = _quadratic_values(coefficients, u, v)
-    r0, r1 = f0 - target_u, f1 - target_v
-    j00, j01, j10, j11 = _quadratic_jacobian(coefficients, u, v)
-    det = j00 * j11 - j01 * j10
-    du, dv = (j11 * r0 - j01 * r1) / det, (j00 * r1 - j10 * r0) / det
-    return u - du, v - dv, np.hypot(du, dv)
-
-
-def _newton_quadratic(
-    coefficients: FloatArray, target: FloatArray, start: FloatArray, *, pixel_normaliser: FloatArray
-) -> FloatArray:
-    """Solve quadratic(p) = target for p (normalised), vectorised.
-
-    While most points are unfinished every point takes the step (cheaper than gathering and scattering;
-    a finished point only moves by less than the tolerance); then only the unfinished ones do.
-    """
-    scale = float(pixel_normaliser[0, 0])  # normalised units per pixel
-    offset = float(np.hypot(*pixel_normaliser[:2, 2])) / scale  # |centroid| in px
-    usable = np.all(np.isfinite(target) & np.isfinite(start), axis=1)
-    points = np.where(usable[:, None], start, np.nan)
-    active = np.flatnonzero(usable)
-    with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
-        for _ in range(NEWTON_MAX_ITERATIONS):
-            if active.size == 0:
-                break
-            rows = slice(None) if 2 * active.size > points.shape[0] else active
-            u, v, step = _newton_step(coefficients, points[rows, 0], points[rows, 1], target[rows, 0], target[rows, 1])
-            points[rows, 0], points[rows, 1] = u, v
-            # Float resolution of a pixel coordinate of magnitude |p| is about eps * |p|.
-            floor_px = 8.0 * np.finfo(np.float64).eps * (np.hypot(u, v) / scale + offset)
-            unfinished = ~(step / scale <= NEWTON_TOLERANCE_PX + floor_px)  # NaN steps stay unfinished
-            failed = ~np.isfinite(step)
-            indices = np.arange(points.shape[0]) if isinstance(rows, slice) else rows
-            points[indices[failed]] = np.nan
-            active = indices[unfinished & ~failed]
-    points[active] = np.nan
-    return points
 
 
 def _similarity_normalised(pixels: FloatArray, chart: FloatArray) -> tuple[FloatArray, float]:
@@ -438,7 +289,9 @@ def fit_transform(pixels: FloatArray, chart: FloatArray, *, name: str) -> PlaneT
     if name == "polynomial2":
         coefficients = _fit_quadratic(p, c)
         affine_start = invert_homogeneous_matrix(_fit_affine(p, c))
-        return QuadraticTransform(coefficients, pixel_norm, chart_norm, affine_start)
+        pixel_box = np.stack([p.min(axis=0), p.max(axis=0)])
+        quadratic_start = fit_quadratic_start(coefficients, pixel_box, affine_start)
+        return QuadraticTransform(coefficients, pixel_norm, chart_norm, affine_start, quadratic_start)
     fitters = {"similarity": _fit_similarity, "affine": _fit_affine, "projective": _fit_projective}
     return _matrix_transform(name, fitters[name](p, c), pixel_norm, chart_norm)
 
