@@ -69,7 +69,7 @@ def prepare(settings: Settings, users: int) -> list[str]:
     return tokens
 
 
-def start_server(settings: Settings, port: int, workers: int) -> subprocess.Popen[bytes]:
+def start_server(settings: Settings, port: int, workers: int, cpus: set[int] | None) -> subprocess.Popen[bytes]:
     env = {
         **os.environ,
         "TRACEDESK_DATA_DIR": str(settings.data_dir),
@@ -92,7 +92,10 @@ def start_server(settings: Settings, port: int, workers: int) -> subprocess.Pope
         "warning",
     ]
     log = open(Path(tempfile.gettempdir()) / f"tracedesk-bench-server-{port}.log", "wb")  # noqa: SIM115 - lives as long as the server
-    server = subprocess.Popen(command, env=env, stdout=log, stderr=subprocess.STDOUT)
+    # With --split-cores the server (and its workers, which inherit it) keeps to its own cores, as if the
+    # technicians' browsers were on other machines; the generator takes the rest.
+    pin = (lambda: os.sched_setaffinity(0, cpus)) if cpus else None
+    server = subprocess.Popen(command, env=env, stdout=log, stderr=subprocess.STDOUT, preexec_fn=pin)
     deadline = time.monotonic() + 60
     while time.monotonic() < deadline:
         try:
@@ -186,10 +189,12 @@ def percentile(values: list[float], q: float) -> float:
     return float(np.percentile(np.asarray(values) * 1000, q)) if values else float("nan")
 
 
-def run(label: str, settings: Settings, users: int, seconds: float, workers: int, think: float) -> None:
+def run(
+    label: str, settings: Settings, users: int, seconds: float, workers: int, think: float, server_cpus: set[int] | None
+) -> None:
     tokens = prepare(settings, users)
     port = free_port()
-    server = start_server(settings, port, workers)
+    server = start_server(settings, port, workers, server_cpus)
     base = f"http://127.0.0.1:{port}"
     try:
         sheet, trace_ids = seed_sheet(base, tokens[0], users, tokens)
@@ -251,7 +256,19 @@ def main() -> None:
         default=os.environ.get("TRACEDESK_TEST_POSTGRES_URL"),
         help="a PostgreSQL URL of an empty database or schema (optional)",
     )
+    parser.add_argument(
+        "--split-cores",
+        action="store_true",
+        help="pin the server to the first core and this load generator to the others (Linux)",
+    )
     args = parser.parse_args()
+    server_cpus = None
+    if args.split_cores:
+        cores = sorted(os.sched_getaffinity(0))
+        if len(cores) < 2:
+            raise SystemExit("--split-cores needs at least two cores")
+        server_cpus = {cores[0]}
+        os.sched_setaffinity(0, set(cores[1:]))
     print(
         "| database | technicians | seconds | save p50 / p95 / p99 (ms) | tile p50 / p95 / p99 (ms) |"
         " saves acknowledged | errors | lost writes |"
@@ -263,11 +280,27 @@ def main() -> None:
             data_dir=Path(folder) / "sqlite",
             database_url=f"sqlite:///{Path(folder) / 'load.sqlite3'}",
         )
-        run("SQLite, 1 web worker", sqlite, args.users, args.seconds, workers=1, think=args.think)
+        run(
+            "SQLite, 1 web worker",
+            sqlite,
+            args.users,
+            args.seconds,
+            workers=1,
+            think=args.think,
+            server_cpus=server_cpus,
+        )
         if args.postgres:
             schema_url = fresh_schema(args.postgres)
             postgres = Settings(environment="test", data_dir=Path(folder) / "pg", database_url=schema_url)
-            run("PostgreSQL, 2 web workers", postgres, args.users, args.seconds, workers=2, think=args.think)
+            run(
+                "PostgreSQL, 2 web workers",
+                postgres,
+                args.users,
+                args.seconds,
+                workers=2,
+                think=args.think,
+                server_cpus=server_cpus,
+            )
 
 
 def fresh_schema(base: str) -> str:

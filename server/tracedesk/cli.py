@@ -134,10 +134,12 @@ def worker(burst: bool) -> None:
 
     from tracedesk.jobs.dispatch import RqDispatcher
     from tracedesk.jobs.worker import requeue_stale, worker_state
+    from tracedesk.logs import configure_logging
 
     settings = Settings()
     if not settings.redis_url:
         _fail("set TRACEDESK_REDIS_URL (e.g. redis://127.0.0.1:6379/0) to run a worker", 2)
+    configure_logging(settings.log_level)  # failed jobs are logged as JSON lines, like the web service's
     state = worker_state()
     requeued = requeue_stale(state)
     if requeued:

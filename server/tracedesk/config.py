@@ -21,6 +21,8 @@ class Settings(BaseSettings):
     database_url: str | None = None
     secret_key: str = DEVELOPMENT_SECRET
     base_url: str = "http://127.0.0.1:8000"
+    # Tracedesk's own logs (JSON lines on standard error, one per request with its id and duration).
+    log_level: Literal["DEBUG", "INFO", "WARNING", "ERROR"] = "INFO"
 
     # Sessions (seconds). Idle and absolute limits follow OWASP session-management guidance.
     session_idle_timeout: int = 30 * 60

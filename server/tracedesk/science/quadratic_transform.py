@@ -5,8 +5,8 @@ which fits it). The inverse solves ``quadratic(p) = target`` per point by Newton
 speed on whole traces and grids (figures from ``bench/bench_calibration.py`` in the README):
 
 * **Start.** A quadratic in chart coordinates, fitted once per transform by least squares to pairs
-  (forward map of a grid, grid) over and around the control points' area. It is off by about the square of the map's bend
-  instead of the bend itself, which saves one or two Newton steps. Points where Newton fails from there
+  (forward map of a grid, grid) over and around the control points' area. It is off by about the square of the
+  map's bend instead of the bend itself, which saves one or two Newton steps. Points where Newton fails from there
   are solved again from the affine start (the inverse of an affine fit to the same control points).
 * **Blocks.** Points are solved :data:`BLOCK_POINTS` at a time so the dozen temporary arrays of a Newton
   step stay in the processor's cache; on 1,000,000-point arrays the same arithmetic streams through main
