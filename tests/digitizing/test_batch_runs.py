@@ -1,7 +1,7 @@
 """Unattended batch digitization (issue 9): a collection of rendered charts registers, traces and fits itself;
-sheets that pass the thresholds become tasks submitted for review (written by the run, so a reviewer may sign
-them), the rest (a blank page) wait in an open task with the reason shown; a run resumes without doing a
-sheet twice and leaves sheets people hold alone.
+sheets that pass the thresholds become tasks submitted for review (written by the run; the reviewer who started
+it counts as an author, so another reviewer signs: four eyes), the rest (a blank page) wait in an open task with
+the reason shown; a run resumes without doing a sheet twice and leaves sheets people hold alone.
 
 The charts are rendered by tests/science/grid_charts.py (matplotlib Agg) with a known pen function: that
 function is the source of the expected values.
@@ -14,14 +14,19 @@ from typing import Any
 
 import numpy as np
 import pytest
+from fastapi import FastAPI
 from fastapi.testclient import TestClient
 
-from tests.conftest import PASSWORD
+from tests.conftest import PASSWORD, log_in
 from tests.digitizing.test_detection_api import _png
 from tests.jobs.test_jobs import _wait_for
 from tests.science.grid_charts import PrintedChart, render_chart, rotation
 from tests.science.test_grid_registration import BLUE, BOX, SPEC_JSON, H, W, _spec
+from tracedesk.accounts.service import create_user
+from tracedesk.audit.service import SYSTEM
+from tracedesk.db import transaction
 from tracedesk.digitizing import batch
+from tracedesk.web.state import AppState
 
 FULL_SCALE = 42.0  # the spec's y frame is 0..42
 PENS = [{"name": "pressure", "pen_color": BLUE, "unit": "bar"}]
@@ -60,7 +65,24 @@ def _finish(client: TestClient, run: dict[str, Any]) -> dict[str, Any]:
     return result
 
 
-def test_batch_run_submits_good_sheets_for_review_and_queues_the_rest(signed_in: dict[str, TestClient]) -> None:
+def second_reviewer(state: AppState, app: FastAPI) -> TestClient:
+    """A signed-in client of a second reviewer, Rhea (invented), who started nothing."""
+    with transaction(state.writer) as session:
+        create_user(
+            session,
+            state.hasher,
+            actor=SYSTEM,
+            username="rhea",
+            password=PASSWORD,
+            role="reviewer",
+            display_name="Rhea",
+        )
+    return log_in(TestClient(app), "rhea")
+
+
+def test_batch_run_submits_good_sheets_for_review_and_queues_the_rest(
+    signed_in: dict[str, TestClient], state: AppState, app: FastAPI
+) -> None:
     reviewer, tech, admin = signed_in["reviewer"], signed_in["technician"], signed_in["admin"]
     files = [(f"day-{i}.png", _chart_png(angle)) for i, angle in enumerate((0.8, -1.6))]
     files.append(("blank.png", _png(np.full((H, W, 3), 250, dtype=np.uint8))))
@@ -104,11 +126,18 @@ def test_batch_run_submits_good_sheets_for_review_and_queues_the_rest(signed_in:
         assert [e["action"] for e in history] == ["create", "start", "submit"]
         assert {e["actor_name"] for e in history} == {f"batch run {run['id']} (automatic)"}
 
-    # Four eyes: the machine digitized, so a reviewer (here the one who started the run) signs it.
+    # Four eyes: the reviewer who started the run counts as an author of what it wrote; another reviewer signs.
     task = by_sheet[sheets[0]]["task_id"]
-    signed = reviewer.post(f"/api/v1/tasks/{task}/signatures", json={"password": PASSWORD, "meaning": "approved"})
+    approve = {"password": PASSWORD, "meaning": "approved"}
+    refused = reviewer.post(f"/api/v1/tasks/{task}/signatures", json=approve)
+    assert refused.status_code == 403 and refused.json()["code"] == "four_eyes", refused.text
+    assert f"you started batch run {run['id']}" in refused.json()["detail"]
+    assert reviewer.get(f"/api/v1/tasks/{task}/signatures").json() == []
+    second = second_reviewer(state, app)
+    signed = second.post(f"/api/v1/tasks/{task}/signatures", json=approve)
     assert signed.status_code == 201, signed.text
     assert reviewer.get(f"/api/v1/tasks/{task}").json()["state"] == "approved"
+    second.close()
     # A technician who is not a reviewer still cannot approve automatic work.
     other = by_sheet[sheets[1]]["task_id"]
     assert tech.post(f"/api/v1/tasks/{other}/signatures", json={"password": PASSWORD}).status_code in (403, 404)
@@ -159,13 +188,22 @@ def test_an_interrupted_run_resumes_without_doing_a_sheet_twice(
     assert run["status"] == "interrupted"
     assert run["counts"] == {"pending": 3, "ready_for_review": 1, "needs_person": 0, "skipped": 0}
 
-    resumed = admin.post(f"/api/v1/batch-runs/{run['id']}/resume")
-    assert resumed.status_code == 202, resumed.text
-    run = _finish(admin, resumed.json())
+    # The run's page offers a Resume button (a form with the CSRF token) to those who may resume, nobody else.
+    page = admin.get(f"/batch-runs/{run['id']}").text
+    assert f'action="/batch-runs/{run["id"]}/resume"' in page and admin.headers["X-CSRF-Token"] in page
+    assert "/resume" not in signed_in["viewer"].get(f"/batch-runs/{run['id']}").text
+    form = {"csrf_token": admin.headers["X-CSRF-Token"]}
+    assert signed_in["viewer"].post(f"/batch-runs/{run['id']}/resume", data=form).status_code == 403
+    resumed = admin.post(f"/batch-runs/{run['id']}/resume", data=form, follow_redirects=False)
+    assert resumed.status_code == 303 and resumed.headers["location"] == f"/batch-runs/{run['id']}", resumed.text
+    run = _finish(admin, admin.get(f"/api/v1/batch-runs/{run['id']}").json())
     assert run["job"]["status"] == "succeeded" and run["status"] == "finished"
     assert run["counts"] == {"pending": 0, "ready_for_review": 3, "needs_person": 1, "skipped": 0}
     assert len(calls) == 5  # 1 + the failure + the 3 sheets still pending
     assert admin.post(f"/api/v1/batch-runs/{run['id']}/resume").status_code == 409
+    again_form = admin.post(f"/batch-runs/{run['id']}/resume", data=form)
+    assert again_form.status_code == 409 and "there is nothing to resume" in again_form.text
+    assert 'action="/batch-runs/' not in admin.get(f"/batch-runs/{run['id']}").text  # finished: no button
 
     tasks = admin.get("/api/v1/tasks", params={"collection_id": collection}).json()
     assert sorted(task["sheet_id"] for task in tasks) == sorted(sheets)  # one task per sheet, no duplicates
@@ -183,6 +221,13 @@ def test_an_interrupted_run_resumes_without_doing_a_sheet_twice(
     assert items[sheets[3]]["status"] == "needs_person" and items[sheets[3]]["task_id"] == blank_task["id"]
     assert f"batch run {again['id']}" in admin.get(f"/api/v1/tasks/{blank_task['id']}").json()["reason"]
     assert len(admin.get("/api/v1/tasks", params={"collection_id": collection}).json()) == 4
+
+    # The collection's runs, newest first, each linking to its page.
+    listing = signed_in["viewer"].get(f"/collections/{collection}/batch-runs")
+    assert listing.status_code == 200
+    links = [f'href="/batch-runs/{again["id"]}"', f'href="/batch-runs/{run["id"]}"']
+    assert all(link in listing.text for link in links)
+    assert listing.text.index(links[0]) < listing.text.index(links[1])
 
 
 @pytest.mark.parametrize(
@@ -214,3 +259,38 @@ def test_double_digitization_collections_are_refused(signed_in: dict[str, TestCl
     assert changed.status_code == 200, changed.text
     response = admin.post(f"/api/v1/collections/{collection}/batch-runs", json={"chart_spec_id": spec, "pens": PENS})
     assert response.status_code == 422 and "double digitization" in response.text
+
+
+def test_a_run_uses_the_collections_settings_unless_the_request_overrides_them(
+    signed_in: dict[str, TestClient],
+) -> None:
+    admin = signed_in["admin"]
+    collection, (sheet,), spec = _collection(admin, "Collection settings", [("one.png", _chart_png(0.3))])
+    settings = admin.get(f"/api/v1/collections/{collection}/workflow")
+    strict = {"min_confidence": 1.0}  # no registration is that sure: every sheet waits for a person
+    saved = admin.put(
+        f"/api/v1/collections/{collection}/workflow",
+        json={"batch_thresholds": strict, "batch_fit": FIT},
+        headers={"If-Match": settings.headers["ETag"]},
+    )
+    assert saved.status_code == 200, saved.text
+
+    run = _run(admin, collection, {"chart_spec_id": spec, "pens": PENS})
+    assert run["settings"]["settings_from"] == {"fit": "collection", "thresholds": "collection"}
+    assert run["settings"]["fit"] == FIT and run["settings"]["thresholds"]["min_confidence"] == 1.0
+    (item,) = run["items"]
+    assert item["status"] == "needs_person" and "registration confidence" in item["reason"]
+    (trace,) = admin.get(f"/api/v1/sheets/{sheet}/traces").json()
+    (fit,) = admin.get(f"/api/v1/traces/{trace['id']}/fits").json()  # the collection's model was fitted
+    assert fit["family"] == "fourier"
+    page = admin.get(f"/batch-runs/{run['id']}")
+    assert "thresholds: the collection" in page.text
+
+    # The request's own thresholds win; the fit still comes from the collection.
+    other, _, spec = _collection(admin, "Request settings", [("two.png", _chart_png(-0.4))])
+    settings = admin.get(f"/api/v1/collections/{other}/workflow")
+    body = {"batch_thresholds": strict, "batch_fit": FIT}
+    assert admin.put(f"/api/v1/collections/{other}/workflow", json=body, headers={"If-Match": settings.headers["ETag"]})
+    run = _run(admin, other, {"chart_spec_id": spec, "pens": PENS, "thresholds": {"min_confidence": 0.5}})
+    assert run["settings"]["settings_from"] == {"fit": "collection", "thresholds": "request"}
+    assert run["counts"]["ready_for_review"] == 1, run["items"]

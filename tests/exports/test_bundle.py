@@ -66,7 +66,8 @@ def test_bundle_contents_match_the_stored_records(signed_in: Clients) -> None:
     assert entry["record_sha256"] == tech.get(f"/api/v1/sheets/{first}/record").json()["sha256"]
     assert entry["calibration"]["version"] == 1 and entry["calibration"]["rms_px"] < 1e-6
     assert entry["traces"][0] == {**entry["traces"][0], "id": trace_id, "version": 1, "vertex_count": 5}
-    assert entry["digitized_by"] == ["Tom"]
+    assert entry["digitized_by"] == ["Tom"] and entry["batch_runs"] == []
+    assert entry["calibration"]["origin"] == "manual" and entry["traces"][0]["origin"] == "manual"
     assert entry["approval"]["state"] == "approved" and entry["approval"]["signed_by"] == "Rita"
     assert entry["approval"]["record_sha256"] == entry["record_sha256"]
     assert entry["task"]["id"] == task_id

@@ -54,8 +54,11 @@ def test_vertices_csv_round_trips_pixels_values_uncertainty_and_times(signed_in:
         "x standard uncertainty [h]",
         "Pegel über Grund standard uncertainty [m]",
         "confidence",
+        "trace origin (auto, edited, manual)",
+        "calibration origin (automatic, manual)",
     ]
-    table = np.array([[float(cell) for i, cell in enumerate(row) if i != 4] for row in rows])
+    assert {tuple(row[-2:]) for row in rows} == {("manual", "manual")}  # clicked by a person, not automatic
+    table = np.array([[float(cell) for i, cell in enumerate(row[:-2]) if i != 4] for row in rows])
     np.testing.assert_allclose(
         table[:, 1:3], np.array([pixel_of(x, y) for x, y in zip(XS, YS, strict=True)]), rtol=1e-9
     )
@@ -94,6 +97,7 @@ def test_formula_cells_are_neutralised_and_period_summaries_match(signed_in: Cli
         np.testing.assert_allclose(float(row[column["mean [m]"]]), period["mean"], rtol=1e-9)
         np.testing.assert_allclose(float(row[column["maximum [m]"]]), period["maximum"], rtol=1e-9)
         assert datetime.fromisoformat(row[column["period start (ISO 8601)"]]).utcoffset() == timedelta(hours=2)
+        assert row[-2:] == ["manual", "manual"]
 
 
 def test_fits_csv_has_one_row_per_fit_with_the_stored_coefficients(signed_in: Clients) -> None:
@@ -130,6 +134,8 @@ def test_fits_csv_has_one_row_per_fit_with_the_stored_coefficients(signed_in: Cl
         )
         assert row[column["approval"]] == "approved" and row[column["approved by"]] == "Rita"
         assert row[column["approved at (ISO 8601, UTC)"]].endswith("Z")
+        assert row[-2:] == ["manual", "manual"]  # the origins come last, after the coefficients
+        assert header[-2:] == ["trace origin (auto, edited, manual)", "calibration origin (automatic, manual)"]
     assert rows[0][column["coefficient 3"]] == ""  # the straight line has two coefficients; padding stays empty
     single = _rows(tech.get(f"/api/v1/fits/{fits[0]['id']}/equation.csv"))
     assert len(single) == 2 and single[1][column["fit id"]] == str(fits[0]["id"])

@@ -106,6 +106,8 @@ MATRIX: dict[tuple[str, str], Rule] = {
     ("GET", "/api/v1/batch-runs/{run_id}"): Rule(P.READ),
     ("POST", "/api/v1/batch-runs/{run_id}/resume"): Rule(P.MANAGE_COLLECTIONS),
     ("GET", "/batch-runs/{run_id}"): Rule(P.READ),
+    ("POST", "/batch-runs/{run_id}/resume"): Rule(P.MANAGE_COLLECTIONS),
+    ("GET", "/collections/{collection_id}/batch-runs"): Rule(P.READ),
     # jobs
     ("GET", "/api/v1/jobs"): Rule(P.READ, note="lists the caller's own jobs (admins: all)"),
     ("GET", "/api/v1/jobs/{job_id}"): Rule(P.READ, owner="job"),

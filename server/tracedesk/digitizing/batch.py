@@ -5,7 +5,9 @@ expected pen, score) and then written in one transaction of its own (:mod:`~trac
 calibration, traces, fits, the sheet's task and the verdict together), so a run stopped half-way keeps what
 it finished and, resumed, goes on with the sheets still pending: no sheet is done twice and no task is made
 twice. Sheets whose figures pass the thresholds become tasks submitted for review; the others wait for a
-person in an open, unassigned task with the reason shown (on the task and on the run's items).
+person in an open, unassigned task with the reason shown (on the task and on the run's items). The thresholds
+and the fitted model are the collection's batch settings unless the request sends its own; the run records
+which (``settings_from``).
 """
 
 from __future__ import annotations
@@ -20,7 +22,13 @@ from tracedesk.archive.service import get_collection, get_sheet
 from tracedesk.audit.service import Actor, record_event
 from tracedesk.db import transaction
 from tracedesk.digitizing.batch_analysis import NEEDS_PERSON, READY, SKIPPED, SheetOutcome, analyse_sheet
-from tracedesk.digitizing.batch_schemas import BatchItemRead, BatchRunCreate, BatchRunRead
+from tracedesk.digitizing.batch_schemas import (
+    BatchItemRead,
+    BatchRunCreate,
+    BatchRunRead,
+    BatchRunSettings,
+    BatchRunSummary,
+)
 from tracedesk.digitizing.batch_verdicts import (
     FINISHED_SHEET_STATUSES,
     batch_actor,
@@ -35,12 +43,12 @@ from tracedesk.errors import AppError, Conflict, NotFound, Unprocessable
 from tracedesk.jobs.context import JobContext
 from tracedesk.jobs.registry import job_handler
 from tracedesk.jobs.service import submit_job
-from tracedesk.models import BatchRun, BatchRunItem, ChartSpec, Job, Sheet, Task
+from tracedesk.models import BatchRun, BatchRunItem, ChartSpec, Job, Sheet, Task, User
 from tracedesk.models.base import utcnow
 from tracedesk.science.errors import ScienceInputError
 from tracedesk.science.grid_spec import CircularChartSpec, grid_spec_from_dict
 from tracedesk.web.state import AppState
-from tracedesk.workflow.collection_settings import settings_of
+from tracedesk.workflow.collection_settings import run_settings, settings_of
 
 ITEM_STATUSES = ("pending", READY, NEEDS_PERSON, SKIPPED)
 # A run whose job stopped in one of these states before the run finished can be resumed.
@@ -77,14 +85,19 @@ def start_batch_run(state: AppState, collection_id: int, body: BatchRunCreate, *
         get_collection(session, collection_id)
         spec = get_chart_spec(session, body.chart_spec_id)
         _check_spec(spec)
-        if settings_of(session, collection_id).double_digitization:
+        workflow = settings_of(session, collection_id)
+        if workflow.double_digitization:
             raise Unprocessable(
                 "this collection uses double digitization (two technicians per sheet); a batch run cannot stand "
                 "in for them"
             )
         sheet_ids = _sheet_ids(session, collection_id, body.sheet_ids)
+        settings = run_settings(workflow, body)
         run = BatchRun(
-            collection_id=collection_id, chart_spec_id=spec.id, created_by_id=actor.id, settings=body.model_dump_json()
+            collection_id=collection_id,
+            chart_spec_id=spec.id,
+            created_by_id=actor.id,
+            settings=settings.model_dump_json(),
         )
         session.add(run)
         session.flush()
@@ -95,7 +108,11 @@ def start_batch_run(state: AppState, collection_id: int, body: BatchRunCreate, *
             action="start_batch",
             entity_type="batch_run",
             entity_id=run.id,
-            changes={"sheets": {"old": None, "new": len(sheet_ids)}, "chart_spec": {"old": None, "new": spec.id}},
+            changes={
+                "sheets": {"old": None, "new": len(sheet_ids)},
+                "chart_spec": {"old": None, "new": spec.id},
+                "settings_from": {"old": None, "new": settings.settings_from},
+            },
         )
     _queue(state, run.id, actor=actor)
     return run
@@ -183,7 +200,7 @@ def batch_run_job(context: JobContext) -> dict[str, Any]:
         if run is None:
             raise NotFound(f"no batch run with id {run_id}")
         run.status = "running"
-        body = BatchRunCreate.model_validate_json(run.settings)
+        body = BatchRunSettings.model_validate_json(run.settings)
         spec = json.loads(get_chart_spec(session, run.chart_spec_id).geometry or "{}")
         pending = _pending(session, run_id)
     for done, (item_id, sheet_id) in enumerate(pending):
@@ -216,6 +233,29 @@ def _run_status(session: Session, run: BatchRun) -> str:
     return "interrupted" if job is not None and job.status in STOPPED_JOB_STATUSES else run.status
 
 
+def _starter(session: Session, run: BatchRun) -> str | None:
+    user = session.get(User, run.created_by_id) if run.created_by_id is not None else None
+    return user.display_name if user is not None else None
+
+
+def batch_runs_of_collection(session: Session, collection_id: int, *, limit: int = 200) -> list[BatchRunSummary]:
+    """The collection's runs, newest first, with their counts (not their items)."""
+    runs = session.scalars(
+        select(BatchRun).where(BatchRun.collection_id == collection_id).order_by(BatchRun.id.desc()).limit(limit)
+    )
+    return [
+        BatchRunSummary(
+            id=run.id,
+            status=_run_status(session, run),
+            counts=item_counts(session, run.id),
+            started_by=_starter(session, run),
+            created_at=run.created_at,
+            finished_at=run.finished_at,
+        )
+        for run in runs
+    ]
+
+
 def batch_run_read(session: Session, run_id: int) -> BatchRunRead:
     run = session.get(BatchRun, run_id)
     if run is None:
@@ -234,6 +274,7 @@ def batch_run_read(session: Session, run_id: int) -> BatchRunRead:
         job_id=run.job_id,
         counts=item_counts(session, run_id),
         settings=json.loads(run.settings),
+        started_by=_starter(session, run),
         items=[
             BatchItemRead(
                 sheet_id=item.sheet_id,

@@ -3,9 +3,19 @@
 from __future__ import annotations
 
 from datetime import datetime
-from typing import Any
+from typing import Annotated, Any
 
-from pydantic import BaseModel, ConfigDict, Field
+from pydantic import AfterValidator, BaseModel, ConfigDict, Field
+
+
+def _names_a_family(fit: dict[str, Any]) -> dict[str, Any]:
+    if not isinstance(fit.get("family"), str) or not fit["family"]:
+        raise ValueError('a fit names its model family, e.g. {"family": "fourier", "degree": 2}')
+    return fit
+
+
+# The model fitted to each trace: the family and that family's options (the fits API's body).
+BatchFit = Annotated[dict[str, Any], AfterValidator(_names_a_family)]
 
 
 class BatchPen(BaseModel):
@@ -31,12 +41,22 @@ class BatchThresholds(BaseModel):
 
 
 class BatchRunCreate(BaseModel):
+    """``fit`` and ``thresholds`` default to the collection's batch settings; sent (``fit: null``: no fit), they
+    override them for this run."""
+
     model_config = ConfigDict(extra="forbid")
     chart_spec_id: int
     pens: list[BatchPen] = Field(min_length=1, max_length=8)
-    fit: dict[str, Any] | None = Field(default=None, description='e.g. {"family": "fourier", "degree": 2}')
+    fit: BatchFit | None = Field(default=None, description='e.g. {"family": "fourier", "degree": 2}')
     thresholds: BatchThresholds = BatchThresholds()
     sheet_ids: list[int] | None = Field(default=None, max_length=100_000, description="a selection; default all")
+
+
+class BatchRunSettings(BatchRunCreate):
+    """What a run uses, as stored on the run: the request with the collection's settings filled in, and where
+    ``fit`` and ``thresholds`` came from (``"collection"`` or ``"request"``)."""
+
+    settings_from: dict[str, str] = Field(default_factory=dict)
 
 
 class BatchItemRead(BaseModel):
@@ -62,7 +82,19 @@ class BatchRunRead(BaseModel):
     status: str
     job_id: int | None
     counts: dict[str, int]
-    settings: dict[str, Any]
+    settings: dict[str, Any] = Field(description="what the run uses; settings_from: where fit and thresholds came from")
+    started_by: str | None = Field(description="who started the run: an author of its work (four eyes)")
     items: list[BatchItemRead]
+    created_at: datetime
+    finished_at: datetime | None
+
+
+class BatchRunSummary(BaseModel):
+    """A run in a collection's list of runs: its counts, not its items."""
+
+    id: int
+    status: str
+    counts: dict[str, int]
+    started_by: str | None
     created_at: datetime
     finished_at: datetime | None

@@ -1,8 +1,8 @@
 """A batch run's verdict on one sheet, stored in one transaction: the automatic work and the sheet's task.
 
 The work is written by the run itself (:func:`batch_actor`: no user id, named after the run), so the audit
-trail marks it automatic and the digitization has no human author: a reviewer signs it as the second pair
-of eyes (the machine digitized, a person approves). Sheets whose figures pass the thresholds become tasks
+trail marks it automatic. The person who started the run counts as its author for the four-eyes rule
+(``workflow.authorship``): another reviewer signs it. Sheets whose figures pass the thresholds become tasks
 submitted for review; the others get an open, unassigned task whose reason says why a person must look.
 
 A sheet people already hold (a task someone created, or a calibration or traces made without a task) is
@@ -28,6 +28,7 @@ from tracedesk.errors import AppError, NotFound, Unprocessable
 from tracedesk.models import BatchRun, BatchRunItem, Sheet, Task, Trace, User
 from tracedesk.models.base import utcnow
 from tracedesk.science.errors import ScienceInputError
+from tracedesk.workflow.authorship import batch_actor_name
 from tracedesk.workflow.schemas import TaskBulkCreate
 from tracedesk.workflow.tasks import create_tasks, flag_for_attention, sheet_has_work, submit_automatic
 
@@ -37,7 +38,7 @@ FINISHED_SHEET_STATUSES = ("approved", "withdrawn")
 
 def batch_actor(run_id: int) -> Actor:
     """Who writes a run's automatic results: the run itself, not a person."""
-    return Actor(id=None, name=f"batch run {run_id} (automatic)")
+    return Actor(id=None, name=batch_actor_name(run_id))
 
 
 def task_of_sheet(session: Session, sheet_id: int) -> Task | None:

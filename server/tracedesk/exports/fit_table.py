@@ -1,6 +1,7 @@
-"""Fitted equations, one row per fit: family, coefficients with standard errors, domain, statistics, the equation
-as text and the sheet's approval state. Units differ from trace to trace, so they are columns of their own and
-the headers of the numbers name the column that holds their unit."""
+"""Fitted equations, one row per fit: family, domain, statistics, the equation as text and the sheet's approval
+state, then the coefficients with standard errors, and last where the trace and its calibration came from
+(automatic or by hand, :mod:`~tracedesk.exports.origins`). Units differ from trace to trace, so they are columns
+of their own and the headers of the numbers name the column that holds their unit."""
 
 from __future__ import annotations
 
@@ -15,7 +16,8 @@ from sqlalchemy.orm import Session
 from tracedesk.digitizing.calibrations import calibration_of, x_unit_of
 from tracedesk.exports.approvals import SheetApproval, approvals_of_sheets
 from tracedesk.exports.csv_cells import Cell
-from tracedesk.models import Fit, Sheet, Trace
+from tracedesk.exports.origins import ORIGIN_HEADER, origin_cells
+from tracedesk.models import Calibration, Fit, Sheet, Trace
 
 BASE_HEADER = [
     "collection id",
@@ -57,6 +59,7 @@ class FitRow:
     sheet: Sheet
     x_unit: str
     approval: SheetApproval
+    calibration: Calibration | None
 
 
 def flatten_parameters(parameters: Any, errors: Any) -> list[tuple[str, float | None, float | None]]:
@@ -99,8 +102,11 @@ def fit_rows(
     found = session.execute(query).all()
     if approvals is None:
         approvals = approvals_of_sheets(session, sorted({sheet.id for _, _, sheet in found}))
-    units = {sheet.id: x_unit_of(calibration_of(session, sheet.id)) for _, _, sheet in found}
-    return [FitRow(fit, trace, sheet, units[sheet.id], approvals[sheet.id]) for fit, trace, sheet in found]
+    calibrations = {sheet.id: calibration_of(session, sheet.id) for _, _, sheet in found}
+    return [
+        FitRow(fit, trace, sheet, x_unit_of(calibrations[sheet.id]), approvals[sheet.id], calibrations[sheet.id])
+        for fit, trace, sheet in found
+    ]
 
 
 def _base_cells(row: FitRow, result: dict[str, Any]) -> list[Cell]:
@@ -153,6 +159,7 @@ def fit_table(rows: list[FitRow]) -> tuple[list[str], Iterator[list[Cell]]]:
     header = list(BASE_HEADER)
     for k in range(1, width + 1):
         header += [f"coefficient {k} name", f"coefficient {k}", f"coefficient {k} standard error"]
+    header += ORIGIN_HEADER  # last, so the columns of earlier exports keep their places
 
     def cells() -> Iterator[list[Cell]]:
         for row, result, flat in zip(rows, results, flats, strict=True):
@@ -160,7 +167,7 @@ def fit_table(rows: list[FitRow]) -> tuple[list[str], Iterator[list[Cell]]]:
             for name, value, error in flat:
                 line += [name, _number(value), _number(error)]
             line += [None] * (3 * (width - len(flat)))
-            yield line
+            yield line + origin_cells(row.trace, row.calibration)
 
     return header, cells()
 

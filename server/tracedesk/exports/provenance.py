@@ -1,5 +1,6 @@
-"""The provenance document of a bundle: for each sheet, the scan's SHA-256, the calibration version and residuals,
-trace and fit versions, who digitized it, who approved it and when, and the record hash a signature binds."""
+"""The provenance document of a bundle: for each sheet, the scan's SHA-256, the calibration version, origin and
+residuals, trace and fit versions, trace origins, who digitized it (people, or batch runs marked automatic), who
+approved it and when, and the record hash a signature binds."""
 
 from __future__ import annotations
 
@@ -17,7 +18,7 @@ from tracedesk.digitizing.fits import fits_of_trace
 from tracedesk.digitizing.traces import traces_of_sheet
 from tracedesk.exports.approvals import SheetApproval
 from tracedesk.models import Collection, Sheet, SourceFile, Task, User
-from tracedesk.workflow.authorship import digitization_authors
+from tracedesk.workflow.authorship import batch_authorships, human_authors
 from tracedesk.workflow.record import sheet_record
 
 PROVENANCE_FORMAT = "tracedesk.bundle-provenance/1"
@@ -35,6 +36,7 @@ def _calibration(session: Session, sheet: Sheet, names: dict[int, str]) -> dict[
     return {
         "version": row.version,
         "kind": row.kind,
+        "origin": row.origin,
         "transform": report.get("transform"),
         "rms_px": report.get("rms_px"),
         "rms_units": report.get("rms_values"),
@@ -57,6 +59,17 @@ def _task(session: Session, sheet_id: int, names: dict[int, str]) -> dict[str, A
         "second_technician": names.get(task.second_technician_id or 0),
         "reviewer": names.get(task.reviewer_id or 0),
         "double_digitization": task.double_digitization,
+    }
+
+
+def _digitized_by(session: Session, sheet_id: int) -> dict[str, Any]:
+    """``digitized_by``: the people who wrote the digitization and the batch runs that wrote it automatically (by
+    their audit name); ``batch_runs``: each such run, marked automatic, with who started it."""
+    runs = batch_authorships(session, sheet_id)
+    names = [*human_authors(session, sheet_id).values(), *(run.actor_name for run in runs)]
+    return {
+        "digitized_by": sorted(names),
+        "batch_runs": [{"batch_run": run.run_id, "automatic": True, "started_by": run.started_by} for run in runs],
     }
 
 
@@ -96,7 +109,7 @@ def sheet_provenance(session: Session, sheet: Sheet, approval: SheetApproval, fi
             }
             for f in fits
         ],
-        "digitized_by": sorted(digitization_authors(session, sheet.id).values()),
+        **_digitized_by(session, sheet.id),
         "task": _task(session, sheet.id, names),
         "approval": {
             "state": approval.state,

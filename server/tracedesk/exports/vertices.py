@@ -12,6 +12,7 @@ from tracedesk.digitizing.calibrations import calibration_of, x_unit_of
 from tracedesk.digitizing.series import chart_start
 from tracedesk.digitizing.traces import samples_of, trace_pixels
 from tracedesk.exports.csv_cells import Cell, unit_label
+from tracedesk.exports.origins import ORIGIN_HEADER, origin_cells
 from tracedesk.models import Trace
 from tracedesk.science.axes import elapsed_hours_to_iso
 
@@ -21,7 +22,8 @@ def _finite(value: float) -> float | None:
 
 
 def vertices_table(session: Session, trace: Trace) -> tuple[list[str], Iterator[list[Cell]]]:
-    """Header and rows: vertex number, u and v (px), x and value with their standard uncertainties, confidence.
+    """Header and rows: vertex number, u and v (px), x and value with their standard uncertainties, confidence,
+    then the trace's and the calibration's origin (:mod:`~tracedesk.exports.origins`).
 
     Chart columns are empty when the sheet is not calibrated or the vertex lies outside the calibrated chart;
     a time column (ISO 8601) is added when the calibration knows the chart's start.
@@ -45,7 +47,9 @@ def vertices_table(session: Session, trace: Trace) -> tuple[list[str], Iterator[
         unit_label("x standard uncertainty", x_unit),
         unit_label(f"{trace.name} standard uncertainty", trace.unit),
         "confidence",
+        *ORIGIN_HEADER,
     ]
+    origins = origin_cells(trace, calibration)
 
     def rows() -> Iterator[list[Cell]]:
         for index, (u, v) in enumerate(pixels.tolist()):
@@ -54,6 +58,6 @@ def vertices_table(session: Session, trace: Trace) -> tuple[list[str], Iterator[
                 row.append(times[index])
             row += [_finite(float(values[index, 1])), _finite(float(sigma[index, 0])), _finite(float(sigma[index, 1]))]
             row.append(float(confidence[index]) if index < len(confidence) else None)
-            yield row
+            yield row + origins
 
     return header, rows()

@@ -30,9 +30,10 @@ from tracedesk.web.templating import render
 from tracedesk.workflow import board, comments, double, notices, tasks
 from tracedesk.workflow.access import find_task, require_may_take, visibility_condition
 from tracedesk.workflow.changes import changes_around_submission
-from tracedesk.workflow.collection_settings import settings_of, update_settings
+from tracedesk.workflow.collection_settings import settings_of, settings_read, update_settings
 from tracedesk.workflow.record import sheet_record
-from tracedesk.workflow.schemas import CommentCreate, TaskBulkCreate, TaskUpdate, WorkflowSettingsUpdate
+from tracedesk.workflow.schemas import CommentCreate, TaskBulkCreate, TaskUpdate
+from tracedesk.workflow.settings_form import settings_update_from_form
 from tracedesk.workflow.signatures import (
     SignatureRefused,
     approval_status,
@@ -105,7 +106,7 @@ def _board_page(
         "board": board.collection_board(db, collection_id, user),
         "tasks": task_reads(db, list(db.scalars(query)), user),
         "state": state,
-        "settings": settings_of(db, collection_id),
+        "settings": settings_read(settings_of(db, collection_id)),
         "can_manage": can_manage,
         "people": _assignable(db) if can_manage else {},
         "message": message,
@@ -158,18 +159,37 @@ def board_settings(
     version: Annotated[int, Form()],
     double_digitization: Annotated[str, Form()] = "",
     tolerance: Annotated[str, Form()] = "",
+    min_confidence: Annotated[str, Form(max_length=40)] = "",
+    max_registration_rms_px: Annotated[str, Form(max_length=40)] = "",
+    min_coverage: Annotated[str, Form(max_length=40)] = "",
+    max_gaps: Annotated[str, Form(max_length=40)] = "",
+    min_gap_fraction: Annotated[str, Form(max_length=40)] = "",
+    min_r_squared: Annotated[str, Form(max_length=40)] = "",
+    batch_fit: Annotated[str, Form(max_length=4000)] = "",
 ) -> Response:
     get_collection(db, collection_id)
     if version != settings_of(db, collection_id).version:
         raise PreconditionFailed("someone changed these settings meanwhile; reload the page and try again")
+    thresholds = {
+        "min_confidence": min_confidence,
+        "max_registration_rms_px": max_registration_rms_px,
+        "min_coverage": min_coverage,
+        "max_gaps": max_gaps,
+        "min_gap_fraction": min_gap_fraction,
+        "min_r_squared": min_r_squared,
+    }
     try:
-        body = WorkflowSettingsUpdate(
-            double_digitization=bool(double_digitization), tolerance=float(tolerance) if tolerance.strip() else None
+        body = settings_update_from_form(
+            double_digitization=double_digitization, tolerance=tolerance, thresholds=thresholds, batch_fit=batch_fit
         )
         update_settings(db, collection_id, body, actor=principal.actor)
     except (ValidationError, ValueError):
         db.rollback()
-        return _board_page(request, principal, db, collection_id, message="the tolerance must be a positive number")
+        message = (
+            "check the settings: the tolerance is a positive number, each threshold a number in its range, "
+            'and the fit JSON names its family, e.g. {"family": "fourier", "degree": 2}'
+        )
+        return _board_page(request, principal, db, collection_id, message=message)
     return RedirectResponse(f"/collections/{collection_id}/tasks", status_code=303)
 
 

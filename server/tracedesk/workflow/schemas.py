@@ -3,9 +3,11 @@
 from __future__ import annotations
 
 from datetime import date, datetime
-from typing import Annotated, Literal
+from typing import Annotated, Any, Literal
 
 from pydantic import BaseModel, ConfigDict, Field, model_validator
+
+from tracedesk.digitizing.batch_schemas import BatchFit, BatchThresholds
 
 Priority = Literal["low", "normal", "high", "urgent"]
 TaskState = Literal["open", "in_progress", "submitted", "returned", "approved", "withdrawn"]
@@ -184,13 +186,20 @@ class WorkflowSettingsRead(BaseModel):
     collection_id: int
     double_digitization: bool
     tolerance: float | None = Field(description="largest accepted difference between two technicians' traces")
+    batch_thresholds: BatchThresholds = Field(description="what a batch run's sheet must pass to go to review")
+    batch_fit: dict[str, Any] | None = Field(description="the model batch runs fit to each trace; null: no fit")
     version: int
 
 
 class WorkflowSettingsUpdate(BaseModel):
+    """Only the fields sent change; ``batch_fit: null`` stops batch runs fitting, ``batch_thresholds: null``
+    restores the default thresholds."""
+
     model_config = ConfigDict(extra="forbid")
     double_digitization: bool | None = None
     tolerance: float | None = Field(default=None, gt=0, allow_inf_nan=False)
+    batch_thresholds: BatchThresholds | None = None
+    batch_fit: BatchFit | None = None
     reason: str | None = Field(default=None, max_length=2000)
 
 

@@ -19,7 +19,7 @@ from tracedesk.errors import Conflict, Forbidden, NotFound
 from tracedesk.models import LoginAttempt, Sheet, Signature, Task, User
 from tracedesk.models.base import utcnow
 from tracedesk.workflow.access import may_review, require_may_take
-from tracedesk.workflow.authorship import digitization_authors
+from tracedesk.workflow.authorship import batch_authorships, digitization_authors
 from tracedesk.workflow.double import both_sets_present
 from tracedesk.workflow.notices import notify
 from tracedesk.workflow.record import SheetRecord, describe_version_changes, sheet_record
@@ -50,6 +50,12 @@ def check_four_eyes(session: Session, task: Task, signer: User) -> None:
     if signer.id in (task.technician_id, task.second_technician_id):
         raise FourEyesViolation(
             f"you are assigned to digitize sheet {task.sheet_id}, so you cannot sign it: another reviewer must"
+        )
+    started = [run.run_id for run in batch_authorships(session, task.sheet_id) if run.started_by_id == signer.id]
+    if started:
+        raise FourEyesViolation(
+            f"you started batch run {started[0]}, which digitized part of sheet {task.sheet_id}, so you cannot sign "
+            "it (four-eyes rule): another reviewer must"
         )
     authors = digitization_authors(session, task.sheet_id)
     if signer.id in authors:
