@@ -2,10 +2,7 @@
 
 from __future__ import annotations
 
-import asyncio
 import sqlite3
-import threading
-import time
 import weakref
 from collections.abc import Callable, Iterator
 from contextlib import contextmanager
@@ -14,6 +11,8 @@ from typing import Any, TypeVar
 from sqlalchemy import Engine, create_engine, event
 from sqlalchemy.exc import DBAPIError, OperationalError
 from sqlalchemy.orm import Session, sessionmaker
+
+from tracedesk.writer_gate import WriterGate
 
 T = TypeVar("T")
 
@@ -65,17 +64,16 @@ def writer_engine(engine: Engine) -> Engine:
     return engine
 
 
-# Writer sessions of an embedded SQLite database queue on a lock of this process before BEGIN IMMEDIATE. Without
-# it, threads of one web process compete in SQLite's busy handler (sleep-and-retry, unfair), and under load a
-# writer can wait past the busy timeout while others keep winning. Several processes still use the busy timeout.
-_WRITER_GATES: weakref.WeakKeyDictionary[sessionmaker[Session], threading.Lock] = weakref.WeakKeyDictionary()
+# Writer sessions of an embedded SQLite database queue on a FIFO lock of this process before BEGIN IMMEDIATE
+# (``writer_gate.WriterGate``). Several processes still meet in SQLite's busy timeout.
+_WRITER_GATES: weakref.WeakKeyDictionary[sessionmaker[Session], WriterGate] = weakref.WeakKeyDictionary()
 
 
 def session_factory(engine: Engine, *, exclusive: bool = False) -> sessionmaker[Session]:
     """Sessions on ``engine``; ``exclusive`` ones (SQLite writers) run one at a time within this process."""
     factory = sessionmaker(bind=engine, expire_on_commit=False, autoflush=True)
     if exclusive:
-        _WRITER_GATES[factory] = threading.Lock()
+        _WRITER_GATES[factory] = WriterGate()
     return factory
 
 
@@ -83,23 +81,22 @@ class DatabaseBusy(OperationalError):
     """The in-process writer queue did not free up within the busy timeout."""
 
 
-def writer_gate(factory: sessionmaker[Session]) -> threading.Lock | None:
+def writer_gate(factory: sessionmaker[Session]) -> WriterGate | None:
     """The in-process writer lock of an exclusive factory, or None (PostgreSQL, readers)."""
     return _WRITER_GATES.get(factory)
 
 
-async def acquire_without_a_thread(gate: threading.Lock) -> None:
+def _busy() -> DatabaseBusy:
+    return DatabaseBusy("BEGIN IMMEDIATE", None, Exception("database is locked (writer queue timed out)"))
+
+
+async def acquire_without_a_thread(gate: WriterGate) -> None:
     """Wait for the writer lock in the event loop, so waiting requests do not hold worker threads.
 
     (Blocking worker threads on the lock can starve the pool that the lock holder needs to finish.)
     """
-    deadline = time.monotonic() + SQLITE_BUSY_TIMEOUT_MS / 1000
-    pause = 0.0005
-    while not gate.acquire(blocking=False):
-        if time.monotonic() > deadline:
-            raise DatabaseBusy("BEGIN IMMEDIATE", None, Exception("database is locked (writer queue timed out)"))
-        await asyncio.sleep(pause)
-        pause = min(pause * 2, 0.005)
+    if not await gate.acquire_async(SQLITE_BUSY_TIMEOUT_MS / 1000):
+        raise _busy()
 
 
 @contextmanager
@@ -108,8 +105,8 @@ def _gate(factory: sessionmaker[Session]) -> Iterator[None]:
     if gate is None:
         yield
         return
-    if not gate.acquire(timeout=SQLITE_BUSY_TIMEOUT_MS / 1000):
-        raise DatabaseBusy("BEGIN IMMEDIATE", None, Exception("database is locked (writer queue timed out)"))
+    if not gate.acquire(SQLITE_BUSY_TIMEOUT_MS / 1000):
+        raise _busy()
     try:
         yield
     finally:
