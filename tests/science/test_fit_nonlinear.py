@@ -85,8 +85,10 @@ def test_power_and_logarithmic_match_curve_fit_covariance() -> None:
     log_reference, log_covariance = curve_fit(lambda t, a, b: a + b * np.log(t), x, y)
     log_fit = fit_logarithmic(x, y)
     assert_allclose(_abc(log_fit), log_reference, rtol=1e-8)
-    assert log_fit.covariance is not None
-    assert_allclose(log_fit.covariance, log_covariance, rtol=1e-6)
+    # curve_fit's covariance assumes independent errors: compare the classical one, which the
+    # reported covariance never undercuts (these residuals are systematic: a log law misfits x^0.6).
+    assert log_fit.independent_covariance is not None
+    assert_allclose(log_fit.independent_covariance, log_covariance, rtol=1e-6)
 
 
 def test_nearly_straight_data_warn_about_a_and_c() -> None:

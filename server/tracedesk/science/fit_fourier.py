@@ -16,6 +16,7 @@ import numpy as np
 from numpy.typing import ArrayLike
 
 from tracedesk.science.errors import ScienceInputError
+from tracedesk.science.fit_covariance import CovarianceEstimate, jacobian_robust_covariance
 from tracedesk.science.fit_fourier_basis import fourier_design, fourier_parameter_names, period_derivative
 from tracedesk.science.fit_inputs import (
     DEFAULT_CV_FOLDS,
@@ -35,7 +36,6 @@ from tracedesk.science.fit_linear import (
 )
 from tracedesk.science.fit_period import estimate_period
 from tracedesk.science.fit_result import FitResult
-from tracedesk.science.fit_stats import covariance_from_jacobian
 
 MAX_FOURIER_DEGREE: Final = 50
 
@@ -155,10 +155,14 @@ def _fourier_result(
 ) -> FitResult:
     size = solution.coefficients.size + 1
     covariance = np.zeros((size, size))
+    independent = np.zeros((size, size))
+    stats = summary.stats
     if estimated:
-        covariance = _covariance_with_period(samples, solution, period=period, factor=summary.variance_factor)
+        estimate = _covariance_with_period(samples, solution, period=period, factor=summary.variance_factor)
+        covariance, independent, stats = estimate.matrix, estimate.independent, {**stats, **estimate.stats()}
     else:
         covariance[:-1, :-1] = summary.covariance
+        independent[:-1, :-1] = summary.estimate.independent
     names = fourier_parameter_names((size - 2) // 2)
     errors = np.sqrt(np.maximum(np.diag(covariance), 0.0))
     return FitResult(
@@ -167,23 +171,28 @@ def _fourier_result(
         standard_errors={name: float(v) for name, v in zip(names, errors, strict=True)},
         parameter_names=names,
         covariance=covariance,
-        stats=summary.stats,
+        stats=stats,
         domain=(float(samples.x.min()), float(samples.x.max())),
         warnings=tuple(_coverage_warnings(samples, period=period, estimated=estimated)),
         options=options,
         model=FourierModel(solution.coefficients, period, estimated, covariance if estimated else summary.covariance),
         noise_variance_factor=summary.variance_factor,
         typical_sigma=summary.typical_sigma,
+        independent_covariance=independent,
     )
 
 
-def _covariance_with_period(samples: Samples, solution: LinearSolution, *, period: float, factor: float) -> FloatArray:
+def _covariance_with_period(
+    samples: Samples, solution: LinearSolution, *, period: float, factor: float
+) -> CovarianceEstimate:
     """Covariance over ``(a0, a1, b1, ..., period)`` from the weighted Jacobian of the full model."""
     degree = (solution.coefficients.size - 1) // 2
     design = fourier_design(samples.x, degree=degree, period=period)
     column = period_derivative(samples.x, solution.coefficients, period=period)
     jacobian = np.column_stack([design, column]) * samples.weights[:, None]
-    return covariance_from_jacobian(jacobian, variance_factor=factor)
+    residual = samples.weights * (samples.y - design @ solution.coefficients)
+    # Same serial-correlation-robust sandwich as the known-period coefficients get.
+    return jacobian_robust_covariance(jacobian, residual, samples.x, variance_factor=factor)
 
 
 def _coverage_warnings(samples: Samples, *, period: float, estimated: bool) -> list[str]:

@@ -22,7 +22,7 @@ from tracedesk.science.fit_inputs import FloatArray, check_degree, check_samples
 from tracedesk.science.fit_polynomial import MAX_POLYNOMIAL_DEGREE, polynomial_warnings
 from tracedesk.science.fit_power_basis import newton_forward_to_power
 from tracedesk.science.fit_result import FitResult
-from tracedesk.science.fit_stats import STAT_NAMES
+from tracedesk.science.fit_stats import STAT_NAMES, StatsDict
 
 # Steps may differ by this fraction of the mean step and still count as equal (rounded x of a trace).
 SPACING_TOLERANCE: Final = 1e-9
@@ -116,9 +116,9 @@ def _check_equal_spacing(x: FloatArray) -> None:
         )
 
 
-def _exact_stats(count: int) -> dict[str, float | int | None]:
+def _exact_stats(count: int) -> StatsDict:
     """Statistics of a curve through its nodes by construction: nothing to estimate."""
-    stats: dict[str, float | int | None] = dict.fromkeys(STAT_NAMES, None)
+    stats: StatsDict = dict.fromkeys(STAT_NAMES, None)
     stats.update(n=count, dof=0)
     return stats
 

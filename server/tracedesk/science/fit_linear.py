@@ -33,6 +33,7 @@ from scipy import linalg as scipy_linalg
 from scipy.linalg import lapack
 
 from tracedesk.science.errors import ScienceInputError
+from tracedesk.science.fit_covariance import CovarianceEstimate, serial_robust_covariance
 from tracedesk.science.fit_inputs import FloatArray, FoldIndex, Samples, fold_indices
 from tracedesk.science.fit_stats import (
     ResidualSpread,
@@ -88,6 +89,7 @@ class LinearSolution:
     cv_rmse: float | None
     condition_number: float
     refined: bool
+    basis: BasisBuilder
 
 
 @dataclass(frozen=True)
@@ -167,6 +169,7 @@ def solve_linear_least_squares(
         cv_rmse=solved.cv_rmse,
         condition_number=condition,
         refined=refined,
+        basis=basis,
     )
 
 
@@ -336,13 +339,16 @@ class LinearSummary:
     covariance: FloatArray
     variance_factor: float
     typical_sigma: float
+    estimate: CovarianceEstimate
 
 
 def summarise_linear_solution(
     samples: Samples, solution: LinearSolution, *, absolute_sigma: bool, extra_parameters: int = 0
 ) -> LinearSummary:
-    """Stats dictionary and covariance ``factor * (R^T R)^-1`` of the coefficients.
+    """Stats dictionary and serial-correlation-robust covariance of the coefficients.
 
+    The covariance is the prewhitened Newey-West sandwich along the trace, never below the
+    independent-error ``factor * (R^T R)^-1`` (:func:`~tracedesk.science.fit_covariance.serial_robust_covariance`).
     ``factor`` is 1 with ``absolute_sigma`` (sigma taken at face value), otherwise the reduced
     chi-square (the residual variance for unweighted fits), as in :func:`noise_variance_factor`.
     ``extra_parameters`` counts nonlinear parameters fitted besides the linear coefficients (an
@@ -366,7 +372,27 @@ def summarise_linear_solution(
         condition_number=solution.condition_number,
         scale=float(np.max(np.abs(samples.y * samples.weights))),
     )
-    return LinearSummary(stats, factor * (inverse_r @ inverse_r.T), factor, typical_sigma(samples))
+    unscaled = inverse_r @ inverse_r.T
+    estimate = _robust_covariance(
+        samples, solution, unscaled, factor=factor, parameter_count=columns + extra_parameters
+    )
+    stats.update(estimate.stats())
+    return LinearSummary(stats, estimate.matrix, factor, typical_sigma(samples), estimate)
+
+
+def _robust_covariance(
+    samples: Samples, solution: LinearSolution, unscaled: FloatArray, *, factor: float, parameter_count: int
+) -> CovarianceEstimate:
+    """HAC covariance from the weighted design ``W A`` and bread ``(A^T W^2 A)^-1``."""
+    design = np.empty((samples.count, unscaled.shape[0]), order="F")
+    solution.basis(samples.x, design)
+    residual = samples.y - design @ solution.coefficients
+    if samples.weighted:
+        design *= samples.weights[:, None]
+        residual = residual * samples.weights
+    return serial_robust_covariance(
+        design, residual, samples.x, bread=unscaled, classical=factor * unscaled, parameter_count=parameter_count
+    )
 
 
 def typical_sigma(samples: Samples) -> float:

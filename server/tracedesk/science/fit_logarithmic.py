@@ -97,4 +97,5 @@ def fit_logarithmic(
         model=LogarithmicModel(intercept, slope, summary.covariance),
         noise_variance_factor=summary.variance_factor,
         typical_sigma=summary.typical_sigma,
+        independent_covariance=summary.estimate.independent,
     )

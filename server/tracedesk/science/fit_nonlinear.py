@@ -23,6 +23,7 @@ from numpy.typing import ArrayLike
 from scipy import integrate, optimize
 
 from tracedesk.science.errors import ScienceInputError
+from tracedesk.science.fit_covariance import jacobian_robust_covariance
 from tracedesk.science.fit_inputs import (
     DEFAULT_CV_FOLDS,
     FloatArray,
@@ -36,8 +37,8 @@ from tracedesk.science.fit_inputs import (
 from tracedesk.science.fit_linear import typical_sigma
 from tracedesk.science.fit_result import FitResult
 from tracedesk.science.fit_stats import (
+    StatsDict,
     condition_number,
-    covariance_from_jacobian,
     noise_variance_factor,
     residual_spread,
     summary_statistics,
@@ -167,6 +168,7 @@ def _fit_growth(samples: Samples, *, family: str, log_x: bool, folds: int, absol
         model=model,
         noise_variance_factor=internal.variance_factor,
         typical_sigma=typical_sigma(samples),
+        independent_covariance=mapping @ internal.independent @ mapping.T,
     )
 
 
@@ -216,9 +218,10 @@ def _least_squares(
 
 @dataclass(frozen=True)
 class _InternalFit:
-    stats: dict[str, float | int | None]
+    stats: StatsDict
     covariance: FloatArray
     variance_factor: float
+    independent: FloatArray
 
 
 def _internal_fit(
@@ -239,7 +242,10 @@ def _internal_fit(
         condition_number=condition_number(jacobian),
         scale=float(np.max(np.abs(samples.y * samples.weights))),
     )
-    return _InternalFit(stats, covariance_from_jacobian(jacobian, variance_factor=factor), factor)
+    # Sandwich covariance robust to residuals correlated along the trace, never below the classical one.
+    estimate = jacobian_robust_covariance(jacobian, samples.weights * residual, samples.x, variance_factor=factor)
+    stats.update(estimate.stats())
+    return _InternalFit(stats, estimate.matrix, factor, estimate.independent)
 
 
 def _cross_validated_rmse(samples: Samples, u: FloatArray, theta: FloatArray, *, folds: int) -> float | None:

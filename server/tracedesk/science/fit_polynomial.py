@@ -185,6 +185,7 @@ def _power_basis_result(
         model=model,
         noise_variance_factor=summary.variance_factor,
         typical_sigma=summary.typical_sigma,
+        independent_covariance=conversion @ summary.estimate.independent @ conversion.T,
     )
 
 

@@ -16,6 +16,7 @@ import numpy as np
 from numpy.typing import ArrayLike
 
 from tracedesk.science.errors import ScienceInputError
+from tracedesk.science.fit_covariance import standard_error_inflation
 from tracedesk.science.fit_inputs import BoolArray, FloatArray, check_level
 from tracedesk.science.fit_stats import StatsDict, student_t_quantile
 
@@ -86,12 +87,19 @@ class FitResult:
         ``n, dof, residual_sd, reduced_chi_square, r_squared, aicc, bic, cv_rmse, condition_number``
         (None where undefined); ``residual_sd`` is in ``y`` units also for weighted fits, and
         ``reduced_chi_square`` (weighted fits only) is the dimensionless weighted counterpart.
+        Least-squares fits add how the covariance was estimated (see
+        :mod:`tracedesk.science.fit_covariance`): ``covariance_estimator``, ``covariance_lag``,
+        ``residual_autocorrelation`` (lag 1, in trace order) and ``standard_error_inflation`` (largest
+        ratio of a reported standard error to the independent-error one).
     domain : tuple of float
         ``(xmin, xmax)`` of the samples: the traced range.
     warnings : tuple of str
         Conditions the user should know about (ill-conditioning, slow convergence, ...).
     options : dict
         Options the fit used, e.g. ``{"degree": 3}``, enough to repeat it.
+    independent_covariance : ndarray or None
+        The classical covariance in the reported parametrisation, which assumes independent errors
+        (for comparison; ``covariance`` is never smaller).
     """
 
     family: str
@@ -106,6 +114,14 @@ class FitResult:
     model: FittedModel = field(repr=False)
     noise_variance_factor: float = field(default=0.0, repr=False)
     typical_sigma: float = field(default=1.0, repr=False)
+    independent_covariance: FloatArray | None = field(default=None, repr=False)
+
+    def __post_init__(self) -> None:
+        # Said in the reported parametrisation, the one whose standard errors the user reads.
+        if self.covariance is not None and self.independent_covariance is not None:
+            self.stats["standard_error_inflation"] = standard_error_inflation(
+                self.independent_covariance, self.covariance
+            )
 
     def predict(self, x: ArrayLike) -> FloatArray:
         """Fitted values (``y`` units) at ``x``; check :meth:`outside_domain` before trusting them."""
@@ -125,8 +141,8 @@ class FitResult:
     def prediction_band(self, x: ArrayLike, *, level: float = 0.95, sigma: float | None = None) -> Band:
         """Band expected to hold a new sample at ``x`` with probability ``level``.
 
-        ``sigma`` is the uncertainty of that new sample when the fit was weighted (``y`` units);
-        by default the root-mean-square of the fitting sigmas.
+        Its variance is the confidence band's plus one new sample's: ``residual_sd^2`` by default,
+        or ``sigma`` (``y`` units, scaled like the fitting sigmas) when given.
         """
         return self._band(x, level=level, kind="prediction", sigma=sigma)
 
@@ -141,13 +157,25 @@ class FitResult:
         gradient = self.model.parameter_gradient(values)
         variance = np.einsum("ij,jk,ik->i", gradient, covariance, gradient)
         if kind == "prediction":
-            new_sigma = self.typical_sigma if sigma is None else float(sigma)
-            variance = variance + self.noise_variance_factor * new_sigma**2
+            variance = variance + self._new_sample_variance(sigma)
         half_width = multiplier * np.sqrt(np.maximum(variance, 0.0))
         fitted = self.model.evaluate(values)
         outside = self.outside_domain(values)
         caution = EXTRAPOLATION_CAUTION if bool(outside.any()) else None
         return Band(kind, level, values, fitted, fitted - half_width, fitted + half_width, outside, caution)
+
+    def _new_sample_variance(self, sigma: float | None) -> float:
+        """Variance of one new sample (``y`` units squared) for a prediction band.
+
+        By default the residual SD squared, the observed scatter in ``y`` units (the same for
+        weighted and unweighted fits); with an explicit ``sigma``, that uncertainty scaled like the
+        fitting sigmas (by the reduced chi-square unless ``absolute_sigma``).
+        """
+        residual_sd = self.stats.get("residual_sd")
+        if sigma is None and isinstance(residual_sd, int | float):
+            return float(residual_sd) ** 2
+        new_sigma = self.typical_sigma if sigma is None else float(sigma)
+        return self.noise_variance_factor * new_sigma**2
 
     def to_dict(self) -> dict[str, Any]:
         """JSON-ready dictionary (lists and floats only; NaN and infinity become None)."""

@@ -9,9 +9,11 @@ Models*, 1994, sec. 2.3; from memory, checked numerically in the tests).
 
 With ``lam`` fixed the spline is linear in ``y``: ``c = S y``. Solving for all unit vectors at once
 gives ``S``, hence the hat matrix trace (effective number of parameters), the residual degrees of
-freedom, and the coefficient covariance ``s^2 S W^-1 S^T`` for bands. The bands are frequentist
-(they ignore smoothing bias; a warning says so). Beyond :data:`SPLINE_COVARIANCE_LIMIT` samples the
-trace is estimated with random probes (Hutchinson's estimator, fixed seed) and no band is offered.
+freedom, and the coefficient covariance for bands: ``s^2 S W^-1 S^T`` for independent errors, or the
+serial-correlation-robust sandwich of :mod:`tracedesk.science.fit_covariance` when that is larger.
+The bands are frequentist (they ignore smoothing bias; a warning says so). Beyond
+:data:`SPLINE_COVARIANCE_LIMIT` samples the trace is estimated with random probes (Hutchinson's
+estimator, fixed seed) and no band is offered.
 """
 
 from __future__ import annotations
@@ -25,6 +27,7 @@ from numpy.typing import ArrayLike
 from scipy.interpolate import BSpline, make_smoothing_spline
 
 from tracedesk.science.errors import ScienceInputError
+from tracedesk.science.fit_covariance import serial_robust_covariance
 from tracedesk.science.fit_inputs import (
     DEFAULT_CV_FOLDS,
     FloatArray,
@@ -143,7 +146,20 @@ def _spline_result(
     smoother = _coefficient_smoother(merged, lam) if count <= SPLINE_COVARIANCE_LIMIT else None
     effective = _hat_trace(merged, lam, smoother)
     factor = noise_variance_factor(weighted_rss=weighted_rss, dof=count - effective, absolute_sigma=absolute_sigma)
-    covariance = None if smoother is None else factor * (smoother / merged.weights**2) @ smoother.T
+    estimate = None
+    if smoother is not None:
+        # c = S y = (S / w)(w y): influence rows (S / w)^T for the prewhitened Newey-West sandwich.
+        influence = smoother / merged.weights
+        classical = factor * influence @ influence.T
+        estimate = serial_robust_covariance(
+            influence.T,
+            merged.weights * residual,
+            merged.x,
+            bread=np.eye(influence.shape[0]),
+            classical=classical,
+            parameter_count=effective,
+        )
+    covariance = None if estimate is None else estimate.matrix
     stats = summary_statistics(
         count=count,
         parameter_count=effective,
@@ -156,6 +172,8 @@ def _spline_result(
         scale=float(np.max(np.abs(merged.y * merged.weights))),
     )
     stats["condition_number"] = None
+    if estimate is not None:
+        stats.update(estimate.stats())
     knots, coefficients = np.asarray(spline.t, dtype=np.float64), np.asarray(spline.c, dtype=np.float64)
     errors = np.full(coefficients.size, np.nan) if covariance is None else np.sqrt(np.maximum(np.diag(covariance), 0))
     parameters: dict[str, Any] = {
@@ -177,6 +195,7 @@ def _spline_result(
         model=SplineModel(knots, coefficients, covariance),
         noise_variance_factor=factor,
         typical_sigma=float(np.sqrt(np.mean(1.0 / merged.weights**2))),
+        independent_covariance=None if estimate is None else estimate.independent,
     )
 
 

@@ -33,7 +33,7 @@ from scipy import stats as scipy_stats
 from tracedesk.science.errors import ScienceInputError
 from tracedesk.science.fit_inputs import FloatArray, Samples
 
-StatsDict = dict[str, float | int | None]
+StatsDict = dict[str, float | int | str | None]
 
 STAT_NAMES: Final = (
     "n",
@@ -171,18 +171,24 @@ def student_t_quantile(level: float, dof: float) -> float:
 
 
 def covariance_from_jacobian(jacobian: FloatArray, *, variance_factor: float) -> FloatArray:
-    """Parameter covariance ``factor * (J^T J)^-1`` from a weighted Jacobian, via its SVD.
+    """Parameter covariance ``factor * (J^T J)^-1`` from a weighted Jacobian, via its SVD."""
+    inverse = jacobian_pseudo_inverse(jacobian)
+    covariance: FloatArray = variance_factor * (inverse @ inverse.T)
+    return covariance
+
+
+def jacobian_pseudo_inverse(jacobian: FloatArray) -> FloatArray:
+    """``J^+`` (shape ``(p, n)``) of a weighted Jacobian, via its SVD.
 
     Singular values below ``eps * max(shape) * s_max`` are dropped (their directions get infinite
     variance in exact arithmetic; reporting a pseudo-inverse keeps the numbers finite and the
     caller warns about the degeneracy).
     """
-    _, singular, vt = scipy_linalg.svd(jacobian, full_matrices=False, check_finite=False)
+    left, singular, vt = scipy_linalg.svd(jacobian, full_matrices=False, check_finite=False)
     threshold = np.finfo(np.float64).eps * max(jacobian.shape) * singular[0]
     keep = singular > threshold
-    scaled = vt[keep] / singular[keep, None]
-    covariance: FloatArray = variance_factor * (scaled.T @ scaled)
-    return covariance
+    inverse: FloatArray = (vt[keep].T / singular[keep]) @ left[:, keep].T
+    return inverse
 
 
 def condition_number(matrix: FloatArray) -> float:

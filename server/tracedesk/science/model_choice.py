@@ -132,8 +132,8 @@ def _attempt(
     )
 
 
-def _float(value: float | int | None) -> float | None:
-    return None if value is None else float(value)
+def _float(value: float | int | str | None) -> float | None:
+    return float(value) if isinstance(value, int | float) else None
 
 
 def _ranked(candidates: list[Candidate]) -> ModelSuggestion:
