@@ -1,11 +1,13 @@
 """Bounded load test on loopback: simulated technicians saving trace edits and reading tiles.
 
-Usage: .venv/bin/python -m bench.bench_load [--users 50] [--seconds 60] [--think 1] [--postgres URL]
+Usage: .venv/bin/python -m bench.bench_load [--users 50] [--seconds 60] [--warmup 5] [--think 1] [--postgres URL]
+       [--split-cores]
 
 Each technician saves about once a second (``--think``), like the workbench's autosave. Starts the real server
 (uvicorn subprocess on 127.0.0.1, a temp data folder), prepares one sheet with a calibration and one trace per
 technician, then runs every technician as a loop of "save my trace (PATCH with If-Match)" and "read a tile"
-until the time is up. Reports p50/p95/p99 per request kind, the error rate, and checks that the audit trail
+until the time is up; their first requests are spread over one think time, and the first ``--warmup`` seconds are
+not measured. Reports p50/p95/p99 per request kind, the error rate (all requests), and checks that the audit trail
 holds exactly one update event per acknowledged save (0 lost writes).
 Everything stays on the loopback interface and stops by itself (count- and time-limited).
 """
@@ -21,6 +23,7 @@ import subprocess
 import sys
 import tempfile
 import time
+from dataclasses import dataclass
 from pathlib import Path
 
 import httpx
@@ -143,12 +146,13 @@ async def technician(
     token: str,
     sheet: int,
     trace_id: int,
-    until: float,
+    window: tuple[float, float],
     think: float,
     timings: dict[str, list[float]],
     errors: list[str],
     saves: list[int],
 ) -> None:
+    measure_from, until = window  # time.monotonic() values: requests before measure_from are the warm-up
     rng = np.random.default_rng(trace_id)
     headers = {"Authorization": f"Bearer {token}", "Content-Type": "application/json"}
     # Edits are encoded once, up front, and taken in turn (each differs from the one before, so every save makes
@@ -158,6 +162,8 @@ async def technician(
         for _ in range(EDIT_VARIANTS)
     ]
     async with httpx.AsyncClient(base_url=base, headers=headers, timeout=30) as client:
+        # People do not all start at the same instant: spread the first requests over one think time.
+        await asyncio.sleep(float(rng.uniform(0.0, max(think, 0.1))))
         etag = (await client.get(f"/api/v1/traces/{trace_id}")).headers["etag"]
         for count in range(MAX_REQUESTS_PER_USER):
             if time.monotonic() >= until:
@@ -166,7 +172,8 @@ async def technician(
             response = await client.patch(
                 f"/api/v1/traces/{trace_id}", content=edits[count % EDIT_VARIANTS], headers={"If-Match": etag}
             )
-            timings["save"].append(time.perf_counter() - started)
+            if time.monotonic() >= measure_from:
+                timings["save"].append(time.perf_counter() - started)
             if response.status_code == 200:
                 etag = response.headers["etag"]
                 saves.append(trace_id)
@@ -178,7 +185,8 @@ async def technician(
             except httpx.HTTPError as error:
                 errors.append(f"tile {type(error).__name__}")
                 continue
-            timings["tile"].append(time.perf_counter() - started)
+            if time.monotonic() >= measure_from:
+                timings["tile"].append(time.perf_counter() - started)
             if tile.status_code != 200:
                 errors.append(f"tile {tile.status_code}")
             # A person edits between autosaves; think=0 turns the run into a closed-loop stress test.
@@ -189,9 +197,18 @@ def percentile(values: list[float], q: float) -> float:
     return float(np.percentile(np.asarray(values) * 1000, q)) if values else float("nan")
 
 
-def run(
-    label: str, settings: Settings, users: int, seconds: float, workers: int, think: float, server_cpus: set[int] | None
-) -> None:
+@dataclass(frozen=True)
+class Load:
+    """What one run offers: technicians, measured seconds after a warm-up, mean think time between saves."""
+
+    users: int
+    seconds: float
+    warmup: float
+    think: float
+
+
+def run(label: str, settings: Settings, load: Load, workers: int, server_cpus: set[int] | None) -> None:
+    users, seconds, think = load.users, load.seconds, load.think
     tokens = prepare(settings, users)
     port = free_port()
     server = start_server(settings, port, workers, server_cpus)
@@ -201,12 +218,15 @@ def run(
         timings: dict[str, list[float]] = {"save": [], "tile": []}
         errors: list[str] = []
         saves: list[int] = []
-        until = time.monotonic() + seconds
+        measure_from = time.monotonic() + load.warmup
+        until = measure_from + seconds
 
         async def everyone() -> None:
             await asyncio.gather(
                 *(
-                    technician(base, tokens[i], sheet, trace_ids[i], until, think, timings, errors, saves)
+                    technician(
+                        base, tokens[i], sheet, trace_ids[i], (measure_from, until), think, timings, errors, saves
+                    )
                     for i in range(users)
                 )
             )
@@ -230,7 +250,7 @@ def run(
             or 0
         )
     state.engine.dispose()
-    total = len(timings["save"]) + len(timings["tile"])
+    total = 2 * len(saves) + len(errors)  # every request, warm-up included: a save and a tile read per round
     print(
         f"| {label} | {users} | {seconds:.0f} | "
         f"{percentile(timings['save'], 50):.1f} / {percentile(timings['save'], 95):.1f} / "
@@ -244,7 +264,8 @@ def run(
 def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--users", type=int, default=50)
-    parser.add_argument("--seconds", type=float, default=60.0)
+    parser.add_argument("--seconds", type=float, default=60.0, help="measured seconds (after the warm-up)")
+    parser.add_argument("--warmup", type=float, default=5.0, help="seconds of load before measuring starts")
     parser.add_argument(
         "--think",
         type=float,
@@ -280,27 +301,12 @@ def main() -> None:
             data_dir=Path(folder) / "sqlite",
             database_url=f"sqlite:///{Path(folder) / 'load.sqlite3'}",
         )
-        run(
-            "SQLite, 1 web worker",
-            sqlite,
-            args.users,
-            args.seconds,
-            workers=1,
-            think=args.think,
-            server_cpus=server_cpus,
-        )
+        load = Load(users=args.users, seconds=args.seconds, warmup=args.warmup, think=args.think)
+        run("SQLite, 1 web worker", sqlite, load, workers=1, server_cpus=server_cpus)
         if args.postgres:
             schema_url = fresh_schema(args.postgres)
             postgres = Settings(environment="test", data_dir=Path(folder) / "pg", database_url=schema_url)
-            run(
-                "PostgreSQL, 2 web workers",
-                postgres,
-                args.users,
-                args.seconds,
-                workers=2,
-                think=args.think,
-                server_cpus=server_cpus,
-            )
+            run("PostgreSQL, 2 web workers", postgres, load, workers=2, server_cpus=server_cpus)
 
 
 def fresh_schema(base: str) -> str:

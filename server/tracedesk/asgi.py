@@ -4,6 +4,8 @@
 standard error as JSON lines with the request id (``tracedesk.logs``).
 """
 
+import gc
+
 from tracedesk.app import create_app
 from tracedesk.config import Settings
 from tracedesk.logs import configure_logging
@@ -11,3 +13,8 @@ from tracedesk.logs import configure_logging
 settings = Settings()
 configure_logging(settings.log_level)
 app = create_app(settings)
+# Everything loaded so far (modules, the app, SQLAlchemy's caches) lives as long as the process: moving it out of
+# the collector's reach keeps full collections short. Without this, a busy worker stalled every few seconds for
+# 100-200 ms while the collector walked those objects (bench/bench_load.py; Python docs, ``gc.freeze``).
+gc.collect()
+gc.freeze()
