@@ -126,7 +126,8 @@ def test_upload_calibrate_trace_fit_and_download_match_the_truth(page: Page, con
     _auto_trace(page)
     _fit(page)
     rows = _download_csv(page)
-    assert rows[0] == ["x [h]", "level [m]", "flag"]
+    assert rows[0][:3] == ["x [h]", "level [m]", "flag"]
+    assert {row[3] for row in rows[1:]} == {"auto"}  # the trace's origin, last columns
     values = np.array([[float(row[0]), float(row[1])] for row in rows[1:] if row[1]])
     assert len(values) > 80  # 0.5 h steps over the traced 47.9 h
     error = np.abs(values[:, 1] - strip_truth(values[:, 0]))

@@ -196,7 +196,8 @@ def test_suggested_model_resamples_the_trace_to_the_truth(page: Page, console: C
         page.get_by_role("link", name="Download CSV").click()
     with open(download.value.path(), encoding="utf-8", newline="") as handle:
         rows = list(csv.reader(handle))
-    assert rows[0] == ["x [h]", "level [m]", "flag"]
+    assert rows[0][:3] == ["x [h]", "level [m]", "flag"]
+    assert {row[3] for row in rows[1:]} == {"auto"}  # the trace's origin, last columns
     values = np.array([[float(row[0]), float(row[1])] for row in rows[1:] if row[1]])
     assert len(values) > 180  # 0.25 h steps over the traced 47.9 h
     np.testing.assert_allclose(np.diff(values[:, 0]), 0.25, atol=1e-9)

@@ -16,6 +16,7 @@ from fastapi.testclient import TestClient
 from PIL import Image
 
 from tests.science.chart_render import GridLines, LinearChartMapping, PenStroke, render_sheet
+from tracedesk.exports.origins import ORIGIN_HEADER
 
 MAPPING = LinearChartMapping(x_range=(0.0, 48.0), y_range=(0.0, 10.0), box_px=(60.0, 40.0, 1140.0, 540.0))
 FULL_SCALE = 10.0
@@ -137,7 +138,8 @@ def test_auto_trace_fit_and_csv_match_the_truth(signed_in: dict[str, TestClient]
     csv_response = tech.get(f"/api/v1/traces/{trace['id']}/resampled.csv", params={"step": 1, "method": "pchip"})
     assert csv_response.status_code == 200
     rows = list(csv.reader(io.StringIO(csv_response.text)))
-    assert rows[0] == ["x [h]", "level [m]", "flag"]
+    assert rows[0] == ["x [h]", "level [m]", "flag", *ORIGIN_HEADER]
+    assert {tuple(row[3:]) for row in rows[1:]} == {("auto", "manual")}  # auto-traced on clicked control points
     grid = np.array([float(row[0]) for row in rows[1:] if row[1]])
     values = np.array([float(row[1]) for row in rows[1:] if row[1]])
     assert np.max(np.abs(values - truth(grid))) / FULL_SCALE < 0.002

@@ -14,6 +14,7 @@ from tracedesk.digitizing.calibrations import require_calibration, x_unit_of
 from tracedesk.digitizing.fits import fit_inputs, get_fit, refit
 from tracedesk.errors import Unprocessable
 from tracedesk.exports.csv_cells import Cell, unit_label, write_csv
+from tracedesk.exports.origins import ORIGIN_HEADER, origin_cells
 from tracedesk.models import Trace
 from tracedesk.science.axes import elapsed_hours_to_iso, parse_iso_datetime
 from tracedesk.science.resampling import ResampledSeries, resample_fit, resample_samples, uniform_grid
@@ -58,13 +59,16 @@ def resample(
 
 
 def resampled_csv(session: Session, trace: Trace, series: ResampledSeries) -> str:
-    """One row per grid point: x (and its ISO 8601 time when the chart start is known), value; gaps empty."""
-    x_unit = x_unit_of(require_calibration(session, trace.sheet_id))
+    """One row per grid point: x (and its ISO 8601 time when the chart start is known), value; gaps empty; the
+    trace's and the calibration's origin last (``exports/origins.py``), so automatic results show as such."""
+    calibration = require_calibration(session, trace.sheet_id)
+    x_unit = x_unit_of(calibration)
     origin = chart_start(session, trace)
     header = [unit_label("x", x_unit)]
     if origin is not None:
         header.append("time (ISO 8601)")
-    header += [unit_label(trace.name, trace.unit), "flag"]
+    header += [unit_label(trace.name, trace.unit), "flag", *ORIGIN_HEADER]
+    provenance = origin_cells(trace, calibration)
     times = elapsed_hours_to_iso(series.x, start=origin) if origin is not None else None
     rows: list[list[Cell]] = []
     for index, (x_value, y_value) in enumerate(zip(series.x.tolist(), series.y.tolist(), strict=True)):
@@ -72,7 +76,7 @@ def resampled_csv(session: Session, trace: Trace, series: ResampledSeries) -> st
         row: list[Cell] = [x_value]
         if times is not None:
             row.append(times[index])
-        row += [None if np.isnan(y_value) else y_value, flag]
+        row += [None if np.isnan(y_value) else y_value, flag, *provenance]
         rows.append(row)
     return write_csv(header, rows)
 
