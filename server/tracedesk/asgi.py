@@ -8,6 +8,7 @@ import gc
 
 from tracedesk.app import create_app
 from tracedesk.config import Settings
+from tracedesk.imaging.decoder_launch import prewarm
 from tracedesk.logs import configure_logging
 
 settings = Settings()
@@ -18,3 +19,4 @@ app = create_app(settings)
 # 100-200 ms while the collector walked those objects (bench/bench_load.py; Python docs, ``gc.freeze``).
 gc.collect()
 gc.freeze()
+prewarm()  # a decoder child ready before the first upload (it would otherwise wait for the child's imports)
