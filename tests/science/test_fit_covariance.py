@@ -14,9 +14,9 @@ from numpy.testing import assert_allclose
 from scipy import stats as scipy_stats
 from scipy.signal import lfilter
 
-from tracedesk.science.fit_covariance import bartlett_long_run, loewner_upper_bound
+from tracedesk.science.fit_covariance import bartlett_long_run, loewner_upper_bound, serial_robust_covariance
 from tracedesk.science.fit_nonlinear import fit_exponential
-from tracedesk.science.fit_polynomial import fit_polynomial
+from tracedesk.science.fit_polynomial import chebyshev_design, fit_polynomial
 from tracedesk.science.fit_result import FitResult
 
 TRACES = 400
@@ -50,6 +50,39 @@ def test_window_sums_equal_the_newey_west_sum(lag: int) -> None:
     """The one-pass window-sum form equals the paper's lag-by-lag sum."""
     scores = np.random.default_rng(lag).normal(size=(80, 3))
     assert_allclose(bartlett_long_run(scores, lag), _newey_west_from_paper(scores, lag), rtol=1e-12, atol=1e-12)
+
+
+@pytest.mark.parametrize("lag", [4, 17])
+def test_window_sums_in_place_equal_the_newey_west_sum(lag: int) -> None:
+    """Keeping the running sums in the scores array (no copy) changes nothing."""
+    scores = np.asfortranarray(np.random.default_rng(lag).normal(size=(80, 3)))
+    expected = _newey_west_from_paper(scores, lag)
+    assert_allclose(bartlett_long_run(scores, lag, overwrite=True), expected, rtol=1e-12, atol=1e-12)
+
+
+def test_weighted_shuffled_fit_reuses_the_solver_rows_faithfully() -> None:
+    """The scores taken from the solver's interleaved folds give the covariance the design matrix gives.
+
+    Reference: :func:`serial_robust_covariance` on the weighted Chebyshev design built afresh with
+    numpy's Chebyshev recurrence (unsorted samples, so the trace order must be recovered too).
+    """
+    rng = np.random.default_rng(5)
+    x = rng.uniform(0.0, 30.0, 3_001)
+    sigma = rng.uniform(0.5, 2.0, x.size)
+    order = np.argsort(x)
+    y = 2.0 - 0.1 * x + 0.01 * x**2
+    y[order] += _ar1(rng, 0.9, (x.size,), 0.3)
+    fit = fit_polynomial(x, y, degree=4, sigma=sigma)
+    model = fit.model
+    assert isinstance(model.internal_covariance, np.ndarray)
+    weights = 1.0 / sigma
+    design = chebyshev_design(model.scaled(x), degree=4) * weights[:, None]
+    residual = weights * (y - model.evaluate(x))
+    bread = np.linalg.inv(design.T @ design)
+    factor = float(residual @ residual) / (x.size - 5)
+    reference = serial_robust_covariance(design, residual, x, bread=bread, classical=factor * bread, parameter_count=5)
+    assert fit.stats["covariance_lag"] == reference.lag
+    assert_allclose(model.internal_covariance, reference.matrix, rtol=1e-9)
 
 
 def test_linear_fit_covariance_equals_prewhitened_newey_west_formula() -> None:

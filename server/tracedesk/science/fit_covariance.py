@@ -90,13 +90,16 @@ class CovarianceEstimate:
         }
 
 
-def bartlett_long_run(scores: FloatArray, lag: int) -> FloatArray:
+def bartlett_long_run(scores: FloatArray, lag: int, *, overwrite: bool = False) -> FloatArray:
     """``sum_{|l| <= L} (1 - |l| / (L + 1)) sum_t v_t v_{t-l}^T`` for rows ``v_t`` of ``scores``.
 
     Computed exactly from window sums: with ``S_j`` the sum of ``L + 1`` consecutive rows of the
     zero-padded scores, ``sum_j S_j S_j^T = (L + 1) sum_l (1 - |l| / (L + 1)) Gamma_l`` (each pair of
     rows ``l`` apart shares ``L + 1 - l`` windows). One pass instead of ``L`` matrix products; for the
     short lags prewhitened scores usually need, the lag products themselves are cheaper.
+
+    ``overwrite`` lets the window route keep its running sums in ``scores`` (saves a copy of an
+    ``(n, k)`` array; pass Fortran order, where the running sum along the trace is contiguous).
     """
     if lag < DIRECT_LAG_LIMIT:
         total = scores.T @ scores
@@ -104,11 +107,14 @@ def bartlett_long_run(scores: FloatArray, lag: int) -> FloatArray:
             product = scores[distance:].T @ scores[:-distance]
             total += (1.0 - distance / (lag + 1.0)) * (product + product.T)
         return total
-    width = scores.shape[1]
-    padded = np.concatenate([np.zeros((lag + 1, width)), scores, np.zeros((lag, width))])
-    cumulative = np.cumsum(padded, axis=0)
-    windows = cumulative[lag + 1 :] - cumulative[: -(lag + 1)]
-    result: FloatArray = windows.T @ windows / (lag + 1)
+    cumulative = np.cumsum(scores, axis=0, out=scores if overwrite else None)
+    width = lag + 1
+    # Windows of the zero-padded rows: those that start before the first row are running sums,
+    # those that end after the last row are the total minus a running sum, the rest differences.
+    head = cumulative[:width]
+    tail = cumulative[-1] - cumulative[-width:-1]
+    middle = cumulative[width:] - cumulative[:-width]
+    result: FloatArray = (head.T @ head + middle.T @ middle + tail.T @ tail) / width
     return result
 
 
@@ -156,19 +162,33 @@ def serial_robust_covariance(
     parameter_count : float
         ``p`` in the ``n / (n - p)`` correction (effective parameters for a spline).
     """
+    if residual.size - parameter_count >= 2 and bool(np.any(x[1:] < x[:-1])):
+        order = np.argsort(x, kind="stable")
+        design, residual = design[order], residual[order]
+    scores = np.empty(design.shape, order="F")
+    np.multiply(design, residual[:, None], out=scores)
+    return covariance_from_scores(scores, residual, bread=bread, classical=classical, parameter_count=parameter_count)
+
+
+def covariance_from_scores(
+    scores: FloatArray, residual: FloatArray, *, bread: FloatArray, classical: FloatArray, parameter_count: float
+) -> CovarianceEstimate:
+    """:func:`serial_robust_covariance` from the score rows ``design[t] * residual[t]``, in trace order.
+
+    ``scores`` (shape ``(n, k)``, best in Fortran order) is used as scratch space and overwritten.
+    """
     count = residual.size
     if count - parameter_count < 2:
         return CovarianceEstimate(classical, "classical", None, None, 1.0, classical)
-    if bool(np.any(x[1:] < x[:-1])):
-        order = np.argsort(x, kind="stable")
-        design, residual = design[order], residual[order]
     rho = lag1_autocorrelation(residual)
     filter_rho = float(np.clip(rho, -PREWHITENING_LIMIT, PREWHITENING_LIMIT))
-    scores = design * residual[:, None]
-    whitened = scores[1:] - filter_rho * scores[:-1]
     lag = bartlett_lag(residual[1:] - filter_rho * residual[:-1])
+    # v*_t = v_t - rho v_{t-1}, written without temporaries (the arrays are n x k).
+    whitened = np.empty((count - 1, scores.shape[1]), order="F")
+    np.multiply(scores[:-1], -filter_rho, out=whitened)
+    whitened += scores[1:]
     correction = count / (count - parameter_count)
-    meat = bartlett_long_run(whitened, lag) * (correction / (1.0 - filter_rho) ** 2)
+    meat = bartlett_long_run(whitened, lag, overwrite=True) * (correction / (1.0 - filter_rho) ** 2)
     hac: FloatArray = bread @ meat @ bread.T
     matrix = loewner_upper_bound(classical, hac)
     return CovarianceEstimate(matrix, HAC_ESTIMATOR, lag, rho, standard_error_inflation(classical, matrix), classical)

@@ -33,7 +33,7 @@ from scipy import linalg as scipy_linalg
 from scipy.linalg import lapack
 
 from tracedesk.science.errors import ScienceInputError
-from tracedesk.science.fit_covariance import CovarianceEstimate, serial_robust_covariance
+from tracedesk.science.fit_covariance import CovarianceEstimate, covariance_from_scores
 from tracedesk.science.fit_inputs import FloatArray, FoldIndex, Samples, fold_indices
 from tracedesk.science.fit_stats import (
     ResidualSpread,
@@ -79,6 +79,12 @@ class LinearSolution:
         2-norm condition number of the weighted design matrix.
     refined : bool
         Whether extended-precision refinement ran.
+    basis : callable
+        The design-matrix builder the problem was solved with.
+    fold_rows : tuple of ndarray
+        The augmented weighted matrix ``[W A | W y]`` of each cross-validation fold: fold ``j`` of
+        ``k`` holds the samples of rank ``j, j + k, j + 2k, ...`` in increasing ``x`` (trace order),
+        so the covariance can reuse them instead of building the design matrix again.
     """
 
     coefficients: FloatArray
@@ -90,6 +96,7 @@ class LinearSolution:
     condition_number: float
     refined: bool
     basis: BasisBuilder
+    fold_rows: tuple[FloatArray, ...] = ()
 
 
 @dataclass(frozen=True)
@@ -170,6 +177,7 @@ def solve_linear_least_squares(
         condition_number=condition,
         refined=refined,
         basis=basis,
+        fold_rows=tuple(fold.augmented for fold in fold_data),
     )
 
 
@@ -383,15 +391,22 @@ def summarise_linear_solution(
 def _robust_covariance(
     samples: Samples, solution: LinearSolution, unscaled: FloatArray, *, factor: float, parameter_count: int
 ) -> CovarianceEstimate:
-    """HAC covariance from the weighted design ``W A`` and bread ``(A^T W^2 A)^-1``."""
-    design = np.empty((samples.count, unscaled.shape[0]), order="F")
-    solution.basis(samples.x, design)
-    residual = samples.y - design @ solution.coefficients
-    if samples.weighted:
-        design *= samples.weights[:, None]
-        residual = residual * samples.weights
-    return serial_robust_covariance(
-        design, residual, samples.x, bread=unscaled, classical=factor * unscaled, parameter_count=parameter_count
+    """HAC covariance from the weighted design ``W A`` and bread ``(A^T W^2 A)^-1``.
+
+    The score rows ``W A_t (w_t r_t)`` are written in trace order straight from the solver's
+    cross-validation folds (which interleave the samples by rank), without building ``W A`` again.
+    """
+    folds = solution.fold_rows
+    columns = unscaled.shape[0]
+    scores = np.empty((samples.count, columns), order="F")
+    residual = np.empty(samples.count)
+    for start, augmented in enumerate(folds):
+        design = augmented[:, :columns]
+        fold_residual = augmented[:, columns] - design @ solution.coefficients
+        residual[start :: len(folds)] = fold_residual
+        np.multiply(design, fold_residual[:, None], out=scores[start :: len(folds)])
+    return covariance_from_scores(
+        scores, residual, bread=unscaled, classical=factor * unscaled, parameter_count=parameter_count
     )
 
 
