@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import math
 import os
+import subprocess
 import sys
 from pathlib import Path
 
@@ -151,3 +152,34 @@ def test_every_session_gets_a_process_nobody_used() -> None:
 def test_limits_refuse_values_no_decoder_could_work_with(seconds: float, memory: int) -> None:
     with pytest.raises(ValueError, match="max_decode"):
         DecodeLimits(max_decode_seconds=seconds, max_decode_memory_bytes=memory)
+
+
+FROM_A_LARGE_PARENT = """
+import sys
+from pathlib import Path
+from tracedesk.imaging import DecodeLimits
+from tracedesk.imaging.decoder_process import DecoderProcess
+from tracedesk.imaging.errors import DecodeMemoryLimit, DecoderStopped
+
+ballast = b"\\x01" * (1200 * 2**20)  # this process's resident set passes the child's whole memory limit
+child = (sys.executable, sys.argv[1])
+limits = DecodeLimits(max_decode_seconds=30.0, max_decode_memory_bytes=1024 * 2**20)
+for mebibytes in (1, 600):
+    with DecoderProcess(limits, command=child) as decoder:
+        try:
+            decoder.call("fill_then_abort", {"mebibytes": mebibytes}, what="rendering")
+        except (DecodeMemoryLimit, DecoderStopped) as refused:
+            print(mebibytes, type(refused).__name__, refused.reason.split("after using ")[1].split(" MiB")[0])
+"""
+
+
+def test_the_memory_a_child_used_is_its_own_even_when_its_parent_is_large() -> None:
+    """Linux's wait4 ru_maxrss keeps the high-water mark across fork and exec, so a child of a web process with a
+    large resident set would seem to have used that much (proc(5): VmHWM is per memory map, ru_maxrss is not)."""
+    run = subprocess.run(
+        [sys.executable, "-c", FROM_A_LARGE_PARENT, CHILD[1]], capture_output=True, text=True, timeout=180
+    )
+    assert run.returncode == 0, run.stderr
+    small, large = (line.split() for line in run.stdout.splitlines())
+    assert small[:2] == ["1", "DecoderStopped"] and int(small[2]) < 300  # not the parent's 1200 MiB
+    assert large[:2] == ["600", "DecodeMemoryLimit"] and 600 <= int(large[2]) <= 1024

@@ -5,6 +5,7 @@ from __future__ import annotations
 import os
 import subprocess
 import sys
+import uuid
 from pathlib import Path
 from typing import Any
 
@@ -19,7 +20,8 @@ def rq_settings(tmp_path: Path, database_url: str, redis_url: str, **extra: Any)
         database_url=database_url,
         job_backend="rq",
         redis_url=redis_url,
-        rq_queue=f"test-{tmp_path.name}"[:60],
+        # tmp_path names repeat across xdist workers (each has its own base folder): add a random part.
+        rq_queue=f"test-{uuid.uuid4().hex[:12]}-{tmp_path.name}"[:60],
         **extra,
     )
 

@@ -7,8 +7,32 @@ from __future__ import annotations
 import asyncio
 import threading
 import time
+from collections.abc import Callable, Coroutine
+from typing import Any, TypeVar
 
 from tracedesk.writer_gate import WriterGate
+
+T = TypeVar("T")
+
+
+def _run(make: Callable[[], Coroutine[Any, Any, T]]) -> T:
+    """Run a coroutine on an event loop of its own thread: the test's thread may already run a loop (Playwright's
+    synchronous API does, in the browser tests' worker)."""
+    result: list[T] = []
+    errors: list[BaseException] = []
+
+    def target() -> None:
+        try:
+            result.append(asyncio.run(make()))
+        except BaseException as error:  # handed back to the test below
+            errors.append(error)
+
+    thread = threading.Thread(target=target)
+    thread.start()
+    thread.join(timeout=30)
+    if errors:
+        raise errors[0]
+    return result[0]
 
 
 def _wait_until(condition: object, seconds: float = 5.0) -> None:
@@ -66,7 +90,7 @@ def test_a_time_out_leaves_the_queue_and_the_next_waiter_still_gets_the_lock() -
     async def late() -> bool:
         return await gate.acquire_async(0.05)
 
-    assert asyncio.run(late()) is False
+    assert _run(late) is False
     assert len(gate._waiters) == 0
     gate.release()
     assert gate.acquire(0.1)
@@ -90,4 +114,4 @@ def test_a_cancelled_request_never_keeps_a_lock_handed_to_it() -> None:
         assert await gate.acquire_async(0.5)  # either way the lock was passed on, not lost
         gate.release()
 
-    asyncio.run(scenario())
+    _run(scenario)

@@ -17,6 +17,7 @@ import os
 import subprocess
 import sys
 import threading
+import weakref
 from collections.abc import Sequence
 from dataclasses import dataclass, field
 
@@ -36,12 +37,36 @@ class _Spares:
 
 
 _SPARES = _Spares()
+_INHERITED_PEAKS: weakref.WeakKeyDictionary[subprocess.Popen[bytes], int] = weakref.WeakKeyDictionary()
+
+
+def own_peak_rss_bytes(pid: int) -> int:
+    """A living process's own peak resident set (VmHWM, bytes), 0 once it has exited or on other systems.
+
+    Unlike `wait4`'s ru_maxrss, VmHWM belongs to the process's current memory map, which exec replaces.
+    """
+    try:
+        with open(f"/proc/{pid}/status", encoding="ascii") as status:
+            for line in status:
+                if line.startswith("VmHWM:"):
+                    return int(line.split()[1]) * 1024
+    except (OSError, ValueError):
+        pass
+    return 0
+
+
+def inherited_peak_bytes(process: subprocess.Popen[bytes]) -> int:
+    """What `wait4` will count for `process` before it did anything itself: the spawning process's peak
+    resident set when it was started (Linux carries the high-water mark across fork and exec)."""
+    return _INHERITED_PEAKS.get(process, 0)
 
 
 def _popen(command: Sequence[str]) -> subprocess.Popen[bytes]:
-    return subprocess.Popen(  # noqa: S603 - our own interpreter and module, no shell, no user input
+    process = subprocess.Popen(  # noqa: S603 - our own interpreter and module, no shell, no user input
         list(command), stdin=subprocess.PIPE, stdout=subprocess.PIPE, env={**os.environ, **_CHILD_ENVIRONMENT}
     )
+    _INHERITED_PEAKS[process] = own_peak_rss_bytes(os.getpid())
+    return process
 
 
 def start_decoder(command: Sequence[str] = DECODER_COMMAND) -> subprocess.Popen[bytes]:

@@ -33,12 +33,19 @@ import os
 import signal
 import subprocess
 import threading
+import time
 from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass
 from types import TracebackType
 from typing import Any, TypeVar
 
-from tracedesk.imaging.decoder_launch import DECODER_COMMAND, retire, start_decoder
+from tracedesk.imaging.decoder_launch import (
+    DECODER_COMMAND,
+    inherited_peak_bytes,
+    own_peak_rss_bytes,
+    retire,
+    start_decoder,
+)
 from tracedesk.imaging.decoder_wire import WireError, read_frame, read_into, write_frame
 from tracedesk.imaging.errors import (
     DecodeMemoryLimit,
@@ -54,6 +61,9 @@ CONCURRENT_DECODES = 2
 #: Starting the child (importing numpy, libvips, PDFium) takes 0.2-0.8 s; this only catches a broken install.
 STARTUP_SECONDS = 60.0
 _MEMORY_EVIDENCE = 0.5
+#: How often the child's peak memory is sampled while it works (a decoder needs far longer to fill its limit).
+SAMPLE_SECONDS = 0.01
+INHERITANCE_MARGIN_BYTES = 16 * 2**20
 _SLOTS = threading.BoundedSemaphore(CONCURRENT_DECODES)
 T = TypeVar("T")
 
@@ -104,6 +114,7 @@ class DecoderProcess:
         self._command = list(command)
         self._process: subprocess.Popen[bytes] | None = None
         self._killed_for_time = False
+        self._sampled_peak = 0
 
     def __enter__(self) -> DecoderProcess:
         return self
@@ -159,6 +170,7 @@ class DecoderProcess:
             return self._process
         self.close()
         process = self._process = start_decoder(self._command)
+        self._sampled_peak = 0
         try:
             write_frame(self._stdin(process), {"memory_bytes": self.limits.max_decode_memory_bytes})
             ready = self._with_deadline(process, STARTUP_SECONDS, lambda: read_frame(self._stdout(process)))
@@ -180,30 +192,46 @@ class DecoderProcess:
         return process.stdout.fileno()
 
     def _with_deadline(self, process: subprocess.Popen[bytes], seconds: float, work: Callable[[], T]) -> T:
-        """Run `work` (blocking reads from the child); SIGKILL the child if `seconds` pass first."""
+        """Run `work` (blocking reads from the child); SIGKILL the child if `seconds` pass first. Meanwhile the
+        child's own peak resident set is sampled (see `_ended` for why `wait4` alone cannot tell it)."""
         self._killed_for_time = False
-        timer = threading.Timer(seconds, self._kill_for_time, args=(process,))
-        timer.daemon = True
-        timer.start()
+        done = threading.Event()
+        watch = threading.Thread(target=self._watch, args=(process, seconds, done), daemon=True)
+        watch.start()
         try:
             return work()
         finally:
-            timer.cancel()
-            timer.join()
+            done.set()
+            watch.join()
+
+    def _watch(self, process: subprocess.Popen[bytes], seconds: float, done: threading.Event) -> None:
+        deadline = time.monotonic() + seconds
+        while not done.wait(min(SAMPLE_SECONDS, max(deadline - time.monotonic(), 0.0))):
+            self._sampled_peak = max(self._sampled_peak, own_peak_rss_bytes(process.pid))
+            if time.monotonic() >= deadline:
+                self._kill_for_time(process)
+                return
 
     def _kill_for_time(self, process: subprocess.Popen[bytes]) -> None:
         self._killed_for_time = True
         _kill_unreaped(process)
 
     def _ended(self, process: subprocess.Popen[bytes]) -> _Ending:
-        """Reap a child that stopped answering, with its peak memory (which `Popen.wait` does not report)."""
+        """Reap a child that stopped answering, with its peak memory (which `Popen.wait` does not report).
+
+        `wait4`'s ru_maxrss also counts the web process's memory as it was when the child was spawned (Linux
+        keeps the high-water mark across exec), so it is believed only where it exceeds that inheritance;
+        otherwise the peak is the child's own high-water mark (VmHWM) sampled while it worked.
+        """
         killed_for_time = self._killed_for_time
-        peak = 0
+        peak = self._sampled_peak
         if process.returncode is None:
             _kill_unreaped(process)  # normally already dead; never left running once it stopped answering
             _, status, usage = os.wait4(process.pid, 0)
             process.returncode = os.waitstatus_to_exitcode(status)
-            peak = usage.ru_maxrss * 1024  # kibibytes on Linux
+            reaped_peak = usage.ru_maxrss * 1024  # kibibytes on Linux
+            if reaped_peak > inherited_peak_bytes(process) + INHERITANCE_MARGIN_BYTES:
+                peak = max(peak, reaped_peak)
         self.close()
         return _Ending(process.returncode, peak, killed_for_time)
 
