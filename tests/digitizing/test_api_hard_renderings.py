@@ -215,12 +215,13 @@ def test_log10_axis_chart(tech: TestClient) -> None:
 
     fit = create_fit(tech, trace["id"], {"family": "exponential"})
     assert_fit_matches(fit, decay_truth, full_scale=LOG_FULL_SCALE_DECADES, chart=np.log10)
-    # Honest uncertainty: the truth (decay_truth's b and c) lies within 3 standard errors of the fit, now that
-    # the covariance allows for errors correlated along the trace. a is left out: it is still ~5.6 SE off,
-    # because a log-axis calibration offset is shared by all samples (a relative error in a) and no
-    # residual-based estimator can see it; that needs the calibration's own uncertainty (not done yet).
-    truth = {"b": -0.45, "c": 20.0}
+    # Honest uncertainty: the truth (decay_truth's a, b and c) lies within 3 standard errors of the fit. The
+    # covariance allows for errors correlated along the trace (residual-based HAC) plus the calibration's own
+    # uncertainty: a log-axis calibration offset is shared by all samples (a relative error in a), which no
+    # residual-based estimator can see (propagated from the control-point clicks, JCGM 100:2008 GUM 5.2).
+    truth = {"a": 8000.0, "b": -0.45, "c": 20.0}
     assert all(abs(fit["coefficients"][k] - v) <= 3.0 * fit["standard_errors"][k] for k, v in truth.items()), fit
+    assert 0.0 < fit["stats"]["calibration_share"] <= 1.0
     assert fit["stats"]["covariance_estimator"] == "hac_newey_west_prewhitened"
     header, grid_x, values = resampled_csv(tech, trace["id"], step=0.5, method="linear")
     assert header[:2] == ["x [h]", "humidity [g/m3]"]

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import json
 from collections import OrderedDict
+from collections.abc import Mapping
 from threading import Lock
 from typing import Any
 
@@ -20,6 +21,10 @@ from tracedesk.science.calibration import ChartMapping, build_calibration
 _CACHE_SIZE = 256
 _cache: OrderedDict[tuple[int, int, str], ChartMapping] = OrderedDict()
 _cache_lock = Lock()
+# Calibrations refitted with one click moved (the shared-error factor of every fit on a sheet needs the same
+# dozens of them): remembered by their canonical JSON, so only a sheet's first fit pays for the refits.
+_MOVED_CACHE_SIZE = 1024
+_moved: OrderedDict[str, ChartMapping] = OrderedDict()
 
 
 def calibration_of(session: Session, sheet_id: int) -> Calibration | None:
@@ -49,6 +54,21 @@ def mapping_of(row: Calibration) -> ChartMapping:
         _cache[key] = mapping
         while len(_cache) > _CACHE_SIZE:
             _cache.popitem(last=False)
+    return mapping
+
+
+def build_remembered(spec: Mapping[str, Any]) -> ChartMapping:
+    """``build_calibration`` for specs that recur (a calibration with one click moved), remembered by content."""
+    key = json.dumps(spec, sort_keys=True, separators=(",", ":"))
+    with _cache_lock:
+        if key in _moved:
+            _moved.move_to_end(key)
+            return _moved[key]
+    mapping = build_calibration(spec)
+    with _cache_lock:
+        _moved[key] = mapping
+        while len(_moved) > _MOVED_CACHE_SIZE:
+            _moved.popitem(last=False)
     return mapping
 
 

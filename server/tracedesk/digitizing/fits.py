@@ -10,30 +10,51 @@ from sqlalchemy import select
 from sqlalchemy.orm import Session
 
 from tracedesk.audit.service import Actor, created_fields, record_event
+from tracedesk.digitizing.calibrations import build_remembered, mapping_of, require_calibration
 from tracedesk.digitizing.schemas import FitRead
-from tracedesk.digitizing.traces import samples_of
+from tracedesk.digitizing.traces import samples_of, trace_pixels
 from tracedesk.errors import NotFound, Unprocessable
 from tracedesk.models import Fit, Trace
+from tracedesk.science.calibration_covariance import CalibrationFactor, calibration_factor
 from tracedesk.science.equations import write_equation
 from tracedesk.science.errors import ScienceInputError
 from tracedesk.science.fit_result import FitResult
 from tracedesk.science.fitting import fit_model
 from tracedesk.science.model_choice import suggest_model
 
-RESERVED_OPTIONS = frozenset({"family", "x", "y", "sigma"})
+RESERVED_OPTIONS = frozenset({"family", "x", "y", "sigma", "calibration"})
 
 
 def fit_inputs(session: Session, trace: Trace) -> tuple[np.ndarray, np.ndarray, np.ndarray | None, int]:
     """x, y, sigma_y of the trace's samples (finite ones, ordered by x) and the calibration version used."""
     values, sigma, calibration_version = samples_of(session, trace)
-    keep = np.isfinite(values).all(axis=1)
-    if not keep.any():
-        raise Unprocessable("the trace has no samples inside the calibrated chart")
-    values, sigma = values[keep], sigma[keep]
-    order = np.argsort(values[:, 0], kind="stable")
-    sigma_y = sigma[order, 1]
+    selection = _fitted_rows(values)
+    values, sigma_y = values[selection], sigma[selection, 1]
     usable_sigma = sigma_y if np.all(np.isfinite(sigma_y)) and np.all(sigma_y > 0) else None
-    return values[order, 0], values[order, 1], usable_sigma, calibration_version
+    return values[:, 0], values[:, 1], usable_sigma, calibration_version
+
+
+def _fitted_rows(values: np.ndarray) -> np.ndarray:
+    """Indices of the samples a fit uses: those inside the calibrated chart, in order of increasing x."""
+    keep = np.flatnonzero(np.isfinite(values).all(axis=1))
+    if not keep.size:
+        raise Unprocessable("the trace has no samples inside the calibrated chart")
+    return keep[np.argsort(values[keep, 0], kind="stable")]
+
+
+def calibration_factor_of(session: Session, trace: Trace) -> CalibrationFactor | None:
+    """The calibration's shared-error factor for the rows :func:`fit_inputs` returns (None if it cannot be refitted)."""
+    row = require_calibration(session, trace.sheet_id)
+    mapping = mapping_of(row)
+    pixels = trace_pixels(trace)
+    selection = _fitted_rows(mapping.pixels_to_values(pixels))
+    try:
+        spec = json.loads(row.spec)
+        return calibration_factor(
+            spec, mapping, pixels[selection], line_width_px=trace.line_width_px, build=build_remembered
+        )
+    except ScienceInputError:
+        return None
 
 
 def compute_fit(session: Session, trace: Trace, family: str, options: dict[str, Any]) -> tuple[FitResult, int]:
@@ -41,7 +62,8 @@ def compute_fit(session: Session, trace: Trace, family: str, options: dict[str, 
     if bad:
         raise Unprocessable(f"option {sorted(bad)[0]!r} cannot be set in a fit request")
     x, y, sigma, calibration_version = fit_inputs(session, trace)
-    return fit_model(x, y, family=family, sigma=sigma, **options), calibration_version
+    calibration = calibration_factor_of(session, trace) if family != "interpolation" else None
+    return fit_model(x, y, family=family, sigma=sigma, calibration=calibration, **options), calibration_version
 
 
 def _equation_dict(result: FitResult) -> dict[str, str]:

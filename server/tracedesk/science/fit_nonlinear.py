@@ -169,6 +169,7 @@ def _fit_growth(samples: Samples, *, family: str, log_x: bool, folds: int, absol
         noise_variance_factor=internal.variance_factor,
         typical_sigma=typical_sigma(samples),
         independent_covariance=mapping @ internal.independent @ mapping.T,
+        parameter_map=mapping,
     )
 
 

@@ -186,6 +186,7 @@ def _power_basis_result(
         noise_variance_factor=summary.variance_factor,
         typical_sigma=summary.typical_sigma,
         independent_covariance=conversion @ summary.estimate.independent @ conversion.T,
+        parameter_map=conversion,
     )
 
 

@@ -100,6 +100,10 @@ class FitResult:
     independent_covariance : ndarray or None
         The classical covariance in the reported parametrisation, which assumes independent errors
         (for comparison; ``covariance`` is never smaller).
+    parameter_map : ndarray or None
+        ``d reported / d internal`` parameters (linear part of the reparametrisation), shape
+        ``(len(parameter_names), len(theta))``; None when the reported parameters are the internal
+        ones (padded with zero rows for a parameter held fixed, e.g. a known Fourier period).
     """
 
     family: str
@@ -115,6 +119,7 @@ class FitResult:
     noise_variance_factor: float = field(default=0.0, repr=False)
     typical_sigma: float = field(default=1.0, repr=False)
     independent_covariance: FloatArray | None = field(default=None, repr=False)
+    parameter_map: FloatArray | None = field(default=None, repr=False)
 
     def __post_init__(self) -> None:
         # Said in the reported parametrisation, the one whose standard errors the user reads.

@@ -22,6 +22,9 @@ interpolation   exact polynomial through equally spaced nodes degree (default: s
 
 All least-squares families also accept ``cv_folds`` (default 5) and ``absolute_sigma`` (default
 False: sigma are relative weights and the covariance is scaled by the reduced chi-square).
+
+Given the samples' calibration covariance factor (``calibration``), the error the calibration shares
+among all samples is added to the coefficient covariance (:mod:`tracedesk.science.fit_calibration`).
 """
 
 from __future__ import annotations
@@ -31,7 +34,9 @@ from typing import Any, Final
 
 from numpy.typing import ArrayLike
 
+from tracedesk.science.calibration_covariance import CalibrationFactor
 from tracedesk.science.errors import ScienceInputError
+from tracedesk.science.fit_calibration import with_calibration_covariance
 from tracedesk.science.fit_fourier import fit_fourier
 from tracedesk.science.fit_interpolation import fit_interpolation
 from tracedesk.science.fit_logarithmic import fit_logarithmic
@@ -75,7 +80,15 @@ _FITTERS: Final[Mapping[str, Callable[..., FitResult]]] = {
 FAMILIES: Final = tuple(_FAMILY_OPTIONS)
 
 
-def fit_model(x: ArrayLike, y: ArrayLike, *, family: str, sigma: ArrayLike | None = None, **options: Any) -> FitResult:
+def fit_model(
+    x: ArrayLike,
+    y: ArrayLike,
+    *,
+    family: str,
+    sigma: ArrayLike | None = None,
+    calibration: CalibrationFactor | None = None,
+    **options: Any,
+) -> FitResult:
     """Fit the model ``family`` to samples ``(x, y)``.
 
     Parameters
@@ -86,6 +99,9 @@ def fit_model(x: ArrayLike, y: ArrayLike, *, family: str, sigma: ArrayLike | Non
         One of :data:`FAMILIES`.
     sigma : array_like, optional
         Standard uncertainty of each ``y`` (``y`` units, > 0); weights are ``1 / sigma^2``.
+    calibration : CalibrationFactor, optional
+        Covariance factor of the samples' calibration error (rows in the order of ``x``); its effect
+        on the coefficients is added to their covariance, and ``stats["calibration_share"]`` says how much.
     **options
         Family options as in the module table; unknown names are refused.
 
@@ -110,7 +126,8 @@ def fit_model(x: ArrayLike, y: ArrayLike, *, family: str, sigma: ArrayLike | Non
         if sigma is not None:
             raise ScienceInputError("exact interpolation passes through the nodes; it takes no sigma")
         return fit_interpolation(x, y, **options)
-    return _FITTERS[family](x, y, sigma=sigma, **options)
+    result = _FITTERS[family](x, y, sigma=sigma, **options)
+    return result if calibration is None else with_calibration_covariance(result, x, sigma, calibration)
 
 
 def _check_option_names(family: str, options: Mapping[str, Any]) -> None:
