@@ -19,7 +19,8 @@ from sqlalchemy import func, select, update
 from tests.archive.scans import multipage_tiff_bytes, png_bytes
 from tests.archive.test_upload import _collection, _counts
 from tests.jobs.rq_queue import rq_settings, run_burst_worker
-from tests.jobs.test_jobs import _wait_for, redis_url  # noqa: F401 - the fixture is used by name
+from tests.jobs.test_jobs import redis_url  # noqa: F401 - the fixture is used by name
+from tests.jobs.waiting import wait_for_job
 from tracedesk.app import build_state
 from tracedesk.archive.ingest import ReceivedFile
 from tracedesk.archive.ingest_job import pending_ingest_keys, queue_received
@@ -52,7 +53,7 @@ def test_a_background_upload_answers_202_and_its_job_makes_the_same_sheets(
     assert answer.status_code == 202, answer.text
     queued = answer.json()["queued"]
     assert [item["filename"] for item in queued] == ["a.png", "b.tif"] and answer.json()["refused"] == []
-    jobs = [_wait_for(tech, item["job_id"]) for item in queued]
+    jobs = [wait_for_job(tech, item["job_id"]) for item in queued]
     assert [job["status"] for job in jobs] == ["succeeded", "succeeded"] and all(j["progress"] == 1.0 for j in jobs)
     png_sheets, tiff_sheets = (job["result"]["sheet_ids"] for job in jobs)  # type: ignore[index]
     assert len(png_sheets) == 1 and len(tiff_sheets) == 3
@@ -74,7 +75,7 @@ def test_a_file_the_job_refuses_leaves_no_row_and_no_derived_folder(
     collection_id = _collection(tech)
     answer = _upload(tech, collection_id, ("broken.png", TRUNCATED_PNG, "image/png"))
     assert answer.status_code == 202, answer.text
-    job = _wait_for(tech, answer.json()["queued"][0]["job_id"])
+    job = wait_for_job(tech, answer.json()["queued"][0]["job_id"])
     assert job["status"] == "failed"
     assert "cannot be decoded" in str(job["error"]), job["error"]
     assert "Traceback" not in str(job["error"])  # a reason for the user, not a fault report
@@ -87,7 +88,7 @@ def test_a_duplicate_is_refused_before_anything_is_queued(signed_in: dict[str, T
     collection_id = _collection(tech)
     png = png_bytes(seed=11)
     first = _upload(tech, collection_id, ("one.png", png, "image/png"))
-    _wait_for(tech, first.json()["queued"][0]["job_id"])
+    wait_for_job(tech, first.json()["queued"][0]["job_id"])
     again = _upload(tech, collection_id, ("again.png", png, "image/png"))
     assert again.status_code == 409, again.text
     assert "already in the collection" in again.json()["detail"] and again.json()["queued"] == []

@@ -15,9 +15,11 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
+import numpy as np
 import pytest
 from playwright.sync_api import APIResponse, Browser, Page
 
+from tests.browser.charts import STRIP
 from tests.browser.live_server import PASSWORD, LiveServer, running_server
 
 CHROMIUM = Path("/usr/bin/chromium")
@@ -137,6 +139,21 @@ def upload_sheet(page: Page, png: bytes, *, name: str, collection: str) -> int:
     files = {"files": {"name": name, "mimeType": "image/png", "buffer": png}}
     answer = api(page, "POST", f"/api/v1/collections/{collection_id}/sheets", multipart=files).json()
     return int(answer["sheets"][0]["id"])
+
+
+def calibrate_strip_through_the_api(page: Page, sheet_id: int) -> None:
+    """Calibrate a `charts.strip_chart_png` sheet at its four frame corners (0-48 h, 0-10 m), as if clicked."""
+    corners = [(0.0, 0.0), (48.0, 0.0), (48.0, 10.0), (0.0, 10.0)]
+    points = [
+        {"pixel": STRIP.data_to_pixel(np.array([x]), np.array([y]))[0].tolist(), "value": [x, y]} for x, y in corners
+    ]
+    calibration = {
+        "kind": "cartesian",
+        "x_axis": {"scale": "time"},
+        "y_axis": {"scale": "linear", "unit": "m"},
+        "control_points": points,
+    }
+    api(page, "PUT", f"/api/v1/sheets/{sheet_id}/calibration", data=calibration)
 
 
 def open_workbench(page: Page, sheet_id: int) -> None:

@@ -17,7 +17,17 @@ import numpy as np
 from playwright.sync_api import Page, expect
 
 from tests.browser.charts import STRIP, STRIP_SIZE, strip_chart_png, strip_truth
-from tests.browser.conftest import HOOK, ConsoleWatch, api, log_in, open_workbench, shoot, show_whole, upload_sheet
+from tests.browser.conftest import (
+    HOOK,
+    ConsoleWatch,
+    api,
+    calibrate_strip_through_the_api,
+    log_in,
+    open_workbench,
+    shoot,
+    show_whole,
+    upload_sheet,
+)
 
 OUTSIDE_TEXT = "outside the traced range"
 OUTLIER_INDEX = 20  # x = 24 h
@@ -51,17 +61,7 @@ RECORDER = """
 def _sheet_with_fits(page: Page) -> tuple[int, int, list[dict[str, Any]]]:
     """A calibrated strip chart, a trace over 4..44 h with one outlier, a quadratic and then a Fourier fit."""
     sheet_id = upload_sheet(page, strip_chart_png(), name="level-week-9.png", collection="Fit display")
-    corners = [(0.0, 0.0), (48.0, 0.0), (48.0, 10.0), (0.0, 10.0)]
-    points = [
-        {"pixel": STRIP.data_to_pixel(np.array([x]), np.array([y]))[0].tolist(), "value": [x, y]} for x, y in corners
-    ]
-    calibration = {
-        "kind": "cartesian",
-        "x_axis": {"scale": "time"},
-        "y_axis": {"scale": "linear", "unit": "m"},
-        "control_points": points,
-    }
-    api(page, "PUT", f"/api/v1/sheets/{sheet_id}/calibration", data=calibration)
+    calibrate_strip_through_the_api(page, sheet_id)
     x = np.linspace(4.0, 44.0, 41)
     y = strip_truth(x)
     y[OUTLIER_INDEX] += OUTLIER_M

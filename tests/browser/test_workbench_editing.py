@@ -14,6 +14,7 @@ from tests.browser.conftest import (
     HOOK,
     ConsoleWatch,
     api,
+    calibrate_strip_through_the_api,
     click_image,
     drag_image,
     log_in,
@@ -29,17 +30,7 @@ HOURS = np.array([4.0, 12.0, 20.0, 28.0, 36.0, 44.0])
 
 def _calibrated_sheet_with_trace(page: Page, collection: str) -> tuple[int, int, list[list[float]]]:
     sheet_id = upload_sheet(page, strip_chart_png(), name="level.png", collection=collection)
-    corners = [(0.0, 0.0), (48.0, 0.0), (48.0, 10.0), (0.0, 10.0)]
-    points = [
-        {"pixel": STRIP.data_to_pixel(np.array([x]), np.array([y]))[0].tolist(), "value": [x, y]} for x, y in corners
-    ]
-    calibration = {
-        "kind": "cartesian",
-        "x_axis": {"scale": "time"},
-        "y_axis": {"scale": "linear", "unit": "m"},
-        "control_points": points,
-    }
-    api(page, "PUT", f"/api/v1/sheets/{sheet_id}/calibration", data=calibration)
+    calibrate_strip_through_the_api(page, sheet_id)
     vertices = STRIP.data_to_pixel(HOURS, strip_truth(HOURS)).tolist()
     trace = api(
         page, "POST", f"/api/v1/sheets/{sheet_id}/traces", data={"name": "level", "unit": "m", "vertices": vertices}

@@ -18,10 +18,11 @@ from functools import lru_cache
 import numpy as np
 from playwright.sync_api import Page, expect
 
-from tests.browser.charts import PEN, STRIP, STRIP_FULL_SCALE, STRIP_SIZE, png_bytes, strip_chart_png, strip_truth
+from tests.browser.charts import PEN, STRIP_FULL_SCALE, STRIP_SIZE, png_bytes, strip_chart_png, strip_truth
 from tests.browser.conftest import (
     ConsoleWatch,
     api,
+    calibrate_strip_through_the_api,
     click_image,
     log_in,
     open_workbench,
@@ -145,17 +146,7 @@ def test_pen_arc_strip_chart_calibrated_by_pointing(page: Page, console: Console
 
 def _calibrated_strip_with_a_found_trace(page: Page) -> tuple[int, int]:
     sheet_id = upload_sheet(page, strip_chart_png(), name="level-week-7.png", collection="Models and grids")
-    corners = [(0.0, 0.0), (48.0, 0.0), (48.0, 10.0), (0.0, 10.0)]
-    points = [
-        {"pixel": STRIP.data_to_pixel(np.array([x]), np.array([y]))[0].tolist(), "value": [x, y]} for x, y in corners
-    ]
-    calibration = {
-        "kind": "cartesian",
-        "x_axis": {"scale": "time"},
-        "y_axis": {"scale": "linear", "unit": "m"},
-        "control_points": points,
-    }
-    api(page, "PUT", f"/api/v1/sheets/{sheet_id}/calibration", data=calibration)
+    calibrate_strip_through_the_api(page, sheet_id)
     body = {"name": "level", "unit": "m", "pen_color": PEN, "region": {"box": [62.0, 42.0, 1138.0, 538.0]}}
     trace = api(page, "POST", f"/api/v1/sheets/{sheet_id}/traces/auto", data=body).json()
     return sheet_id, int(trace["id"])

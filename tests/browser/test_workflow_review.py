@@ -28,6 +28,7 @@ from tests.browser.charts import STRIP, STRIP_SIZE, strip_chart_png, strip_truth
 from tests.browser.conftest import (
     ConsoleWatch,
     api,
+    calibrate_strip_through_the_api,
     click_image,
     csrf,
     drag_image,
@@ -99,20 +100,6 @@ def _assign(admin: Page, collection_id: int) -> int:
     return int(row.locator("a").first.inner_text().lstrip("#"))
 
 
-def _calibrate_through_the_api(page: Page, sheet_id: int) -> None:
-    corners = [(0.0, 0.0), (48.0, 0.0), (48.0, 10.0), (0.0, 10.0)]
-    points = [
-        {"pixel": STRIP.data_to_pixel(np.array([x]), np.array([y]))[0].tolist(), "value": [x, y]} for x, y in corners
-    ]
-    body = {
-        "kind": "cartesian",
-        "x_axis": {"scale": "time"},
-        "y_axis": {"scale": "linear", "unit": "m"},
-        "control_points": points,
-    }
-    api(page, "PUT", f"/api/v1/sheets/{sheet_id}/calibration", data=body)
-
-
 def _open_workbench_from_task(page: Page) -> None:
     page.get_by_role("link", name="workbench").click()
     page.wait_for_selector("[data-workbench][data-ready='true']")
@@ -122,7 +109,7 @@ def _open_workbench_from_task(page: Page) -> None:
 
 def _digitize(tom: Page, sheet_id: int) -> list[list[float]]:
     """A trace by hand: six clicks on the pen line, the third one slipping above it. Returns the saved vertices."""
-    _calibrate_through_the_api(tom, sheet_id)
+    calibrate_strip_through_the_api(tom, sheet_id)
     _open_workbench_from_task(tom)
     tom.locator("[data-new-trace-fold] summary").click()
     new_trace = tom.locator("[data-new-trace]")
@@ -261,7 +248,7 @@ def test_a_bundle_job_shows_a_progress_bar_and_then_the_download(
 ) -> None:
     log_in(page, "rita")
     sheet_id = upload_sheet(page, strip_chart_png(4), name="level.png", collection="Reservoir levels 1992")
-    _calibrate_through_the_api(page, sheet_id)
+    calibrate_strip_through_the_api(page, sheet_id)
     api(
         page,
         "POST",

@@ -19,7 +19,7 @@ from fastapi.testclient import TestClient
 
 from tests.conftest import PASSWORD, log_in
 from tests.digitizing.test_detection_api import _png
-from tests.jobs.test_jobs import _wait_for
+from tests.jobs.waiting import wait_for_job
 from tests.science.grid_charts import PrintedChart, render_chart, rotation
 from tests.science.test_grid_registration import BLUE, BOX, SPEC_JSON, H, W, _spec
 from tracedesk.accounts.service import create_user
@@ -59,7 +59,7 @@ def _run(client: TestClient, collection: int, body: dict[str, Any]) -> dict[str,
 
 
 def _finish(client: TestClient, run: dict[str, Any]) -> dict[str, Any]:
-    job = _wait_for(client, run["job_id"], timeout=180)
+    job = wait_for_job(client, run["job_id"], timeout=180)
     result: dict[str, Any] = client.get(f"/api/v1/batch-runs/{run['id']}").json()
     result["job"] = job
     return result

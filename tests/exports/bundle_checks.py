@@ -5,7 +5,6 @@ from __future__ import annotations
 import csv
 import io
 import json
-import time
 import zipfile
 from typing import Any
 
@@ -18,17 +17,6 @@ def start_bundle(client: TestClient, collection_id: int, **body: Any) -> int:
     job_id = int(response.json()["id"])
     assert response.headers["location"] == f"/api/v1/jobs/{job_id}"
     return job_id
-
-
-def wait_for_job(client: TestClient, job_id: int, *, timeout: float = 60.0) -> dict[str, Any]:
-    """Poll the jobs API until the job succeeded or failed (a bound, not a timing assertion)."""
-    deadline = time.monotonic() + timeout
-    while time.monotonic() < deadline:
-        job = client.get(f"/api/v1/jobs/{job_id}").json()
-        if job["status"] in {"succeeded", "failed"}:
-            return dict(job)
-        time.sleep(0.05)
-    raise AssertionError(f"job {job_id} did not finish within {timeout} s")
 
 
 def collection_exports(admin: TestClient, collection_id: int) -> list[dict[str, Any]]:

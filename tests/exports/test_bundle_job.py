@@ -17,8 +17,9 @@ from click.testing import CliRunner
 from fastapi.testclient import TestClient
 from sqlalchemy import select, update
 
-from tests.exports.bundle_checks import check_against_stored, collection_exports, start_bundle, wait_for_job
+from tests.exports.bundle_checks import check_against_stored, collection_exports, start_bundle
 from tests.exports.test_bundle import _collection
+from tests.jobs.waiting import wait_for_job
 from tracedesk.cli import main
 from tracedesk.db import transaction
 from tracedesk.exports import bundle, bundle_jobs

@@ -19,6 +19,7 @@ from sqlalchemy import func, select, update
 
 from tests.digitizing.test_digitizing_api import PEN, _calibrate
 from tests.jobs.rq_queue import rq_settings, worker_env
+from tests.jobs.waiting import wait_for_job
 from tracedesk.audit.service import SYSTEM, verify_chain
 from tracedesk.db import transaction
 from tracedesk.jobs.execute import recover_stale_jobs, run_job
@@ -31,16 +32,6 @@ pytest_plugins = ["tests.digitizing.test_digitizing_api"]
 REDIS_ENV = "TRACEDESK_TEST_REDIS_URL"
 
 
-def _wait_for(client: TestClient, job_id: int, *, timeout: float = 30.0) -> dict[str, object]:
-    deadline = time.monotonic() + timeout
-    while time.monotonic() < deadline:
-        job = client.get(f"/api/v1/jobs/{job_id}").json()
-        if job["status"] in {"succeeded", "failed"}:
-            return dict(job)
-        time.sleep(0.05)
-    raise AssertionError(f"job {job_id} did not finish in {timeout} s")
-
-
 def test_background_auto_trace_reports_progress_and_result(signed_in: dict[str, TestClient], sheet_id: int) -> None:
     tech = signed_in["technician"]
     _calibrate(tech, sheet_id)
@@ -51,7 +42,7 @@ def test_background_auto_trace_reports_progress_and_result(signed_in: dict[str, 
     )
     assert response.status_code == 202, response.text
     assert response.headers["location"] == f"/api/v1/jobs/{response.json()['id']}"
-    job = _wait_for(tech, response.json()["id"])
+    job = wait_for_job(tech, response.json()["id"])
     assert job["status"] == "succeeded" and job["progress"] == 1.0
     trace_id = job["result"]["trace_id"]  # type: ignore[index]
     assert tech.get(f"/api/v1/traces/{trace_id}").json()["origin"] == "auto"
@@ -65,7 +56,7 @@ def test_a_failing_job_stores_nothing_and_says_why(signed_in: dict[str, TestClie
         params={"background": "true"},
         json={"name": "x", "pen_color": "#00ff00", "region": {"box": [62, 42, 1138, 538]}},
     )
-    job = _wait_for(tech, response.json()["id"])
+    job = wait_for_job(tech, response.json()["id"])
     assert job["status"] == "failed" and "colour" in str(job["error"]).lower()
     assert tech.get(f"/api/v1/sheets/{sheet_id}/traces").json() == []
 

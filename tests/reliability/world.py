@@ -3,11 +3,9 @@ a token, a review task with a comment; and the path values that name them."""
 
 from __future__ import annotations
 
-import time
 from dataclasses import dataclass
 
-from fastapi.testclient import TestClient
-
+from tests.jobs.waiting import wait_for_job
 from tests.reliability.campaign import Campaign
 from tests.reliability.records import Records, make_records
 
@@ -39,14 +37,6 @@ def _first_notice(campaign: Campaign) -> int:
     return int(notices[0]["id"]) if notices else MISSING_ID
 
 
-def _wait_for_job(client: TestClient, job_id: int) -> None:
-    """Let the background job finish, so it writes nothing while a test compares the database."""
-    deadline = time.monotonic() + 60
-    while client.get(f"/api/v1/jobs/{job_id}").json()["status"] in {"queued", "running"}:
-        assert time.monotonic() < deadline, "the background job did not finish within a minute"
-        time.sleep(0.05)
-
-
 def build_world(campaign: Campaign, *, name: str = "Authorization box", seed: int = 31) -> World:
     technician = campaign.client("technician")
     records = make_records(technician, name=name, seed=seed)
@@ -55,7 +45,7 @@ def build_world(campaign: Campaign, *, name: str = "Authorization box", seed: in
         json={"name": "bg", "pen_color": "#1f3cc8", "region": {"box": [40, 40, 600, 360]}},
     )
     assert job.status_code == 202, job.text
-    _wait_for_job(technician, int(job.json()["id"]))
+    wait_for_job(technician, int(job.json()["id"]))  # so it writes nothing while a test compares the database
     token = technician.post("/api/v1/tokens", json={"name": "matrix target"}).json()
     task_id, comment_id = _make_task(campaign, records)
     values: dict[str, object] = {
