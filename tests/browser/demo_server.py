@@ -8,16 +8,13 @@ the way ``serve --demo`` gets them to print (the loader's summary). Nothing here
 
 from __future__ import annotations
 
-import threading
 from collections.abc import Iterator
 from contextlib import contextmanager
 from dataclasses import dataclass
 from pathlib import Path
 
-import uvicorn
-
-from tests.browser.live_server import _wait_until_up, free_port
-from tracedesk.app import build_state, create_app
+from tests.browser.live_server import serving
+from tracedesk.app import build_state
 from tracedesk.cli import _ensure_first_admin
 from tracedesk.config import Settings
 from tracedesk.demo.loader import first_run_wants_demo, load_demo
@@ -58,23 +55,6 @@ def _first_run(state: AppState, *, dpi: float) -> tuple[dict[str, str], list[str
     summary = load_demo(state, dpi=dpi)
     passwords = {account.username: account.password for account in summary.accounts if account.password}
     return passwords, summary.notes
-
-
-@contextmanager
-def serving(settings: Settings, state: AppState) -> Iterator[str]:
-    """Serve the app on a free loopback port in a daemon thread; yields its base URL and stops it afterwards."""
-    port = free_port()
-    config = uvicorn.Config(create_app(settings, state=state), host="127.0.0.1", port=port, log_level="warning")
-    server = uvicorn.Server(config)
-    thread = threading.Thread(target=server.run, name="tracedesk-demo-server", daemon=True)
-    thread.start()
-    url = f"http://127.0.0.1:{port}"
-    try:
-        _wait_until_up(url, server)
-        yield url
-    finally:
-        server.should_exit = True
-        thread.join(timeout=10)
 
 
 @contextmanager

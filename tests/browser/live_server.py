@@ -21,6 +21,7 @@ from tracedesk.app import build_state, create_app
 from tracedesk.audit.service import SYSTEM
 from tracedesk.config import Settings
 from tracedesk.db import transaction
+from tracedesk.web.state import AppState
 
 PASSWORD = "correct horse battery staple"
 USERS = {"tom": "technician", "tess": "technician", "vic": "viewer", "rita": "reviewer", "ada": "admin"}
@@ -75,19 +76,28 @@ def running_server(data_dir: Path) -> Iterator[LiveServer]:
                 role=role,
                 display_name=name.title(),
             )
-    port = free_port()
-    config = uvicorn.Config(create_app(settings, state=state), host="127.0.0.1", port=port, log_level="warning")
-    server = uvicorn.Server(config)
-    thread = threading.Thread(target=server.run, name="tracedesk-browser-server", daemon=True)
-    thread.start()
-    url = f"http://127.0.0.1:{port}"
     try:
-        _wait_until_up(url, server)
-        yield LiveServer(base_url=url, data_dir=data_dir)
+        with serving(settings, state) as url:
+            yield LiveServer(base_url=url, data_dir=data_dir)
     finally:
-        server.should_exit = True
-        thread.join(timeout=10)
         dispatcher = getattr(state, "dispatcher", None)
         if dispatcher is not None:
             dispatcher.shutdown()
         state.engine.dispose()
+
+
+@contextmanager
+def serving(settings: Settings, state: AppState) -> Iterator[str]:
+    """Serve the app on a free loopback port in a daemon thread; yields its base URL and stops it afterwards."""
+    port = free_port()
+    config = uvicorn.Config(create_app(settings, state=state), host="127.0.0.1", port=port, log_level="warning")
+    server = uvicorn.Server(config)
+    thread = threading.Thread(target=server.run, name="tracedesk-test-server", daemon=True)
+    thread.start()
+    url = f"http://127.0.0.1:{port}"
+    try:
+        _wait_until_up(url, server)
+        yield url
+    finally:
+        server.should_exit = True
+        thread.join(timeout=10)

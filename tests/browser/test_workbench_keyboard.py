@@ -3,13 +3,13 @@ keys and clicks, a found line discarded at review, a calibration reused from ano
 
 from __future__ import annotations
 
-import numpy as np
 from playwright.sync_api import Browser, Page, expect
 
-from tests.browser.charts import STRIP, STRIP_SIZE, strip_chart_png
+from tests.browser.charts import STRIP_SIZE, strip_chart_png
 from tests.browser.conftest import (
     ConsoleWatch,
     api,
+    calibrate_strip_through_the_api,
     click_image,
     image_to_page,
     log_in,
@@ -27,17 +27,7 @@ def _two_sheets_one_calibrated(page: Page, collection: str) -> tuple[int, int]:
         ids.append(
             api(page, "POST", f"/api/v1/collections/{collection_id}/sheets", multipart=files).json()["sheets"][0]["id"]
         )
-    corners = [(0.0, 0.0), (48.0, 0.0), (48.0, 10.0), (0.0, 10.0)]
-    points = [
-        {"pixel": STRIP.data_to_pixel(np.array([x]), np.array([y]))[0].tolist(), "value": [x, y]} for x, y in corners
-    ]
-    body = {
-        "kind": "cartesian",
-        "x_axis": {"scale": "time"},
-        "y_axis": {"scale": "linear", "unit": "m"},
-        "control_points": points,
-    }
-    api(page, "PUT", f"/api/v1/sheets/{ids[0]}/calibration", data=body)
+    calibrate_strip_through_the_api(page, int(ids[0]))
     return int(ids[0]), int(ids[1])
 
 
