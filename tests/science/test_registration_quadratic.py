@@ -75,7 +75,9 @@ def test_inverse_agrees_with_scipy_root(bend: float) -> None:
             return (fitted.pixels_to_chart(p.reshape(1, 2))[0] - target) / np.array([0.01, 0.04])
 
         reference = root(residual, point + 3.0, method="hybr", options={"xtol": 1e-13})
-        assert reference.success
+        # MINPACK may stop with "not making good progress" once the step is at round-off level (seen
+        # with scipy 1.17); its point is then still a root to well below the 1e-9 px asked for.
+        assert reference.success or float(np.max(np.abs(reference.fun))) < 1e-11
         assert_allclose(ours, reference.x, rtol=0, atol=1e-9)
         assert_allclose(ours, point, rtol=0, atol=1e-9)
 

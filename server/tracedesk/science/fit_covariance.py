@@ -29,6 +29,16 @@ Honesty first: the reported covariance is never smaller than the classical one. 
 least both ``C`` and ``H`` in the matrix (Loewner) order, so every standard error and every band
 variance ``g^T V g`` is at least what either estimator gives.
 
+Long traces are summed in blocks first. The estimator is then the same formula applied to the series of
+block sums ``u_m = sum of b consecutive v_t`` with ``ceil((L + 1) / b)`` blocks per window (temporal
+aggregation: the block sums add up to the same total, so they estimate the same long-run variance,
+and the result is still a sum of outer products, hence positive semidefinite). For ``b = 1`` it is the
+textbook estimator exactly. The prewhitened block sums need no pass over the whitened series:
+``sum_{t in block} (v_t - rho v_{t-1}) = (1 - rho) u_m + rho (v_end(m) - v_end(m-1))``. The
+cost is one pass over the influence rows instead of five, which is what keeps 100,000-sample fits
+as fast as a plain least-squares solve; the price is a little more variance in the estimate when
+``L + 1 < b`` (nearly white residuals), negligible with the thousands of blocks long traces give.
+
 What no residual-based estimator can see is an error shared by all samples (a calibration offset):
 it is absorbed into the fitted coefficients. That part must come from the calibration's own
 uncertainty.
@@ -44,6 +54,7 @@ import numpy as np
 
 from tracedesk.science.fit_inputs import FloatArray
 from tracedesk.science.fit_stats import jacobian_pseudo_inverse
+from tracedesk.science.narrow_products import cross_product, gram_matrix
 
 HAC_ESTIMATOR: Final = "hac_newey_west_prewhitened"
 # Andrews & Monahan (1992) keep the prewhitening filter away from a unit root.
@@ -81,13 +92,64 @@ class CovarianceEstimate:
     inflation: float
     independent: FloatArray
 
+    block: int | None = None
+
     def stats(self) -> dict[str, float | int | str | None]:
         """The entries this estimate adds to a fit's statistics."""
         return {
             "covariance_estimator": self.estimator,
             "covariance_lag": self.lag,
+            "covariance_block": self.block,
             "residual_autocorrelation": self.autocorrelation,
         }
+
+
+@dataclass(frozen=True, eq=False)
+class BlockScores:
+    """Score rows ``v_t`` (in trace order) summed over consecutive blocks of ``size`` samples.
+
+    Attributes
+    ----------
+    sums : ndarray, shape (m, k)
+        ``sum v_t`` over each block; the last block may hold fewer than ``size`` samples.
+    ends : ndarray, shape (m, k)
+        ``v_t`` of each block's last sample.
+    first : ndarray, shape (k,)
+        ``v_0``, the first sample's row (the AR(1) filter has no predecessor for it).
+    size : int
+        Samples per block (``1``: the rows themselves).
+    """
+
+    sums: FloatArray
+    ends: FloatArray
+    first: FloatArray
+    size: int
+
+    @classmethod
+    def of_rows(cls, scores: FloatArray) -> BlockScores:
+        """Blocks of one sample: the rows themselves (the textbook estimator)."""
+        return cls(scores, scores, scores[0], 1)
+
+    def prewhitened(self, rho: float) -> FloatArray:
+        """Block sums of ``v*_t = v_t - rho v_{t-1}`` for ``t >= 1`` (Fortran order).
+
+        For blocks of more than one sample the result is written over ``sums`` and ``ends`` (no
+        temporaries: fresh arrays of this size cost page faults); the blocks are spent afterwards.
+        """
+        if self.size == 1:  # sums and ends are the same rows: v*_t straight from them
+            whitened = np.empty(self.sums.shape, order="F")
+            whitened[0] = 0.0
+            np.multiply(self.sums[:-1], -rho, out=whitened[1:])
+            whitened[1:] += self.sums[1:]
+            return whitened
+        whitened, ends = self.sums, self.ends
+        whitened *= 1.0 - rho
+        ends *= rho
+        whitened[0] += ends[0]
+        whitened[0] -= self.first
+        whitened[1:] += ends[1:]
+        whitened[1:] -= ends[:-1]
+        return whitened
 
 
 def bartlett_long_run(scores: FloatArray, lag: int, *, overwrite: bool = False) -> FloatArray:
@@ -102,9 +164,9 @@ def bartlett_long_run(scores: FloatArray, lag: int, *, overwrite: bool = False) 
     ``(n, k)`` array; pass Fortran order, where the running sum along the trace is contiguous).
     """
     if lag < DIRECT_LAG_LIMIT:
-        total = scores.T @ scores
+        total = gram_matrix(scores)
         for distance in range(1, lag + 1):
-            product = scores[distance:].T @ scores[:-distance]
+            product = cross_product(scores[distance:], scores[:-distance])
             total += (1.0 - distance / (lag + 1.0)) * (product + product.T)
         return total
     cumulative = np.cumsum(scores, axis=0, out=scores if overwrite else None)
@@ -114,7 +176,7 @@ def bartlett_long_run(scores: FloatArray, lag: int, *, overwrite: bool = False) 
     head = cumulative[:width]
     tail = cumulative[-1] - cumulative[-width:-1]
     middle = cumulative[width:] - cumulative[:-width]
-    result: FloatArray = (head.T @ head + middle.T @ middle + tail.T @ tail) / width
+    result: FloatArray = (gram_matrix(head) + gram_matrix(middle) + gram_matrix(tail)) / width
     return result
 
 
@@ -124,13 +186,32 @@ def lag1_autocorrelation(series: FloatArray) -> float:
     return float(np.dot(series[1:], series[:-1])) / total if total > 0.0 else 0.0
 
 
-def bartlett_lag(series: FloatArray) -> int:
-    """Andrews' (1991) AR(1) plug-in truncation lag ``floor(1.1447 (alpha n)^(1/3))``, below ``n``."""
-    count = series.size
-    rho = min(abs(lag1_autocorrelation(series)), PREWHITENING_LIMIT)
+def andrews_lag(rho: float, count: int) -> int:
+    """Andrews' (1991) AR(1) plug-in truncation lag ``floor(1.1447 (alpha n)^(1/3))``, below ``n``.
+
+    ``rho`` is the lag-1 autocorrelation of a series of ``count`` values.
+    """
+    rho = min(abs(rho), PREWHITENING_LIMIT)
     alpha = 4.0 * rho**2 / ((1.0 - rho) ** 2 * (1.0 + rho) ** 2)
     andrews = math.floor(ANDREWS_BARTLETT_CONSTANT * (alpha * count) ** (1.0 / 3.0))
     return max(0, min(int(andrews), count - 1))
+
+
+def prewhitened_lag(residual: FloatArray, rho: float) -> int:
+    """:func:`andrews_lag` of ``e_t - rho e_{t-1}`` (``t >= 1``) without forming that series.
+
+    Its lag-0 and lag-1 sums follow exactly from the residuals' own ``S_j = sum_t e_t e_{t-j}``,
+    ``j = 0, 1, 2``, with the end terms the shorter sums leave out.
+    """
+    e = residual
+    count = e.size
+    if count < 4:
+        return andrews_lag(lag1_autocorrelation(e[1:] - rho * e[:-1]), count - 1)
+    s0, s1, s2 = float(e @ e), float(e[1:] @ e[:-1]), float(e[2:] @ e[:-2])
+    first, second, last, before_last = float(e[0]), float(e[1]), float(e[-1]), float(e[-2])
+    energy = (s0 - first**2) - 2.0 * rho * s1 + rho**2 * (s0 - last**2)
+    cross = (s1 - second * first) - rho * (s0 - first**2 - last**2) - rho * s2 + rho**2 * (s1 - last * before_last)
+    return andrews_lag(cross / energy if energy > 0.0 else 0.0, count - 1)
 
 
 def serial_robust_covariance(
@@ -145,7 +226,8 @@ def serial_robust_covariance(
     """Prewhitened Newey-West covariance, never below ``classical`` (see the module docstring).
 
     The influence of sample ``t`` on the parameters is ``bread @ design[t]``; the sandwich is
-    ``bread @ Omega @ bread^T`` with ``Omega`` the HAC sum over rows ``design[t] * residual[t]``.
+    ``bread @ Omega @ bread^T`` with ``Omega`` the HAC sum over rows ``design[t] * residual[t]``
+    (blocks of one sample: the textbook estimator).
 
     Parameters
     ----------
@@ -167,31 +249,33 @@ def serial_robust_covariance(
         design, residual = design[order], residual[order]
     scores = np.empty(design.shape, order="F")
     np.multiply(design, residual[:, None], out=scores)
-    return covariance_from_scores(scores, residual, bread=bread, classical=classical, parameter_count=parameter_count)
+    return covariance_from_blocks(
+        BlockScores.of_rows(scores), residual, bread=bread, classical=classical, parameter_count=parameter_count
+    )
 
 
-def covariance_from_scores(
-    scores: FloatArray, residual: FloatArray, *, bread: FloatArray, classical: FloatArray, parameter_count: float
+def covariance_from_blocks(
+    blocks: BlockScores, residual: FloatArray, *, bread: FloatArray, classical: FloatArray, parameter_count: float
 ) -> CovarianceEstimate:
-    """:func:`serial_robust_covariance` from the score rows ``design[t] * residual[t]``, in trace order.
+    """:func:`serial_robust_covariance` from block sums of the score rows ``design[t] * residual[t]``.
 
-    ``scores`` (shape ``(n, k)``, best in Fortran order) is used as scratch space and overwritten.
+    ``residual`` (shape ``(n,)``, in trace order) gives the prewhitening coefficient and Andrews'
+    lag ``L`` in samples; the Bartlett window then spans ``ceil((L + 1) / b)`` blocks of ``b`` samples.
     """
     count = residual.size
     if count - parameter_count < 2:
         return CovarianceEstimate(classical, "classical", None, None, 1.0, classical)
     rho = lag1_autocorrelation(residual)
     filter_rho = float(np.clip(rho, -PREWHITENING_LIMIT, PREWHITENING_LIMIT))
-    lag = bartlett_lag(residual[1:] - filter_rho * residual[:-1])
-    # v*_t = v_t - rho v_{t-1}, written without temporaries (the arrays are n x k).
-    whitened = np.empty((count - 1, scores.shape[1]), order="F")
-    np.multiply(scores[:-1], -filter_rho, out=whitened)
-    whitened += scores[1:]
+    lag = prewhitened_lag(residual, filter_rho)
+    block_lag = -(-(lag + 1) // blocks.size) - 1
     correction = count / (count - parameter_count)
-    meat = bartlett_long_run(whitened, lag, overwrite=True) * (correction / (1.0 - filter_rho) ** 2)
+    long_run = bartlett_long_run(blocks.prewhitened(filter_rho), block_lag, overwrite=True)
+    meat = long_run * (correction / (1.0 - filter_rho) ** 2)
     hac: FloatArray = bread @ meat @ bread.T
     matrix = loewner_upper_bound(classical, hac)
-    return CovarianceEstimate(matrix, HAC_ESTIMATOR, lag, rho, standard_error_inflation(classical, matrix), classical)
+    inflation = standard_error_inflation(classical, matrix)
+    return CovarianceEstimate(matrix, HAC_ESTIMATOR, lag, rho, inflation, classical, blocks.size)
 
 
 def jacobian_robust_covariance(

@@ -33,17 +33,22 @@ def fourier_design(
     block to fill. Works in float64 and in ``numpy.longdouble`` (with an extended-precision pi).
     """
     two_pi = TWO_PI_EXTENDED if x.dtype == np.longdouble else 2.0 * math.pi
-    theta = x * (two_pi / x.dtype.type(period))
     design = np.empty((x.size, 2 * degree + 1), dtype=x.dtype, order="F") if out is None else out
     design[:, 0] = 1
     if degree == 0:
         return design
-    cosine, sine = np.cos(theta), np.sin(theta)
-    design[:, 1], design[:, 2] = cosine, sine
+    # Straight into the columns, theta in the sine's: no temporaries (fresh large arrays cost page faults).
+    theta = np.multiply(x, two_pi / x.dtype.type(period), out=design[:, 2])
+    cosine = np.cos(theta, out=design[:, 1])
+    sine = np.sin(theta, out=design[:, 2])
+    scratch = np.empty_like(theta) if degree >= 2 else theta
     for k in range(2, degree + 1):
         previous_cos, previous_sin = design[:, 2 * k - 3], design[:, 2 * k - 2]
-        design[:, 2 * k - 1] = previous_cos * cosine - previous_sin * sine
-        design[:, 2 * k] = previous_sin * cosine + previous_cos * sine
+        cos_k, sin_k = design[:, 2 * k - 1], design[:, 2 * k]
+        np.multiply(previous_cos, cosine, out=cos_k)
+        cos_k -= np.multiply(previous_sin, sine, out=scratch)
+        np.multiply(previous_sin, cosine, out=sin_k)
+        sin_k += np.multiply(previous_cos, sine, out=scratch)
     return design
 
 

@@ -79,7 +79,8 @@ def check_samples(x: ArrayLike, y: ArrayLike, sigma: ArrayLike | None, *, minimu
     if x_values.size < minimum:
         raise ScienceInputError(f"this fit needs at least {minimum} samples, got {x_values.size}")
     if sigma is None:
-        return Samples(x_values, y_values, np.ones_like(x_values), weighted=False)
+        # A read-only broadcast view of ones: no memory, and any attempt to write to it fails loudly.
+        return Samples(x_values, y_values, np.broadcast_to(np.float64(1.0), x_values.shape), weighted=False)
     sigma_values = as_finite_vector(sigma, field="sigma")
     if sigma_values.size != x_values.size:
         raise ScienceInputError(f"sigma has {sigma_values.size} values for {x_values.size} samples")
@@ -135,9 +136,8 @@ def check_level(level: float) -> float:
 
 def distinct_count(values: FloatArray) -> int:
     """Number of distinct values in ``values``."""
-    steps = np.diff(values)
-    if bool(np.all(steps >= 0.0)):  # traces usually arrive sorted: skip the sort
-        return 1 + int(np.count_nonzero(steps))
+    if bool(np.all(values[1:] >= values[:-1])):  # traces usually arrive sorted: skip the sort
+        return 1 + int(np.count_nonzero(values[1:] != values[:-1]))
     return int(np.unique(values).size)
 
 

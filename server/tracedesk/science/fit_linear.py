@@ -33,7 +33,7 @@ from scipy import linalg as scipy_linalg
 from scipy.linalg import lapack
 
 from tracedesk.science.errors import ScienceInputError
-from tracedesk.science.fit_covariance import CovarianceEstimate, covariance_from_scores
+from tracedesk.science.fit_covariance import BlockScores, CovarianceEstimate, covariance_from_blocks
 from tracedesk.science.fit_inputs import FloatArray, FoldIndex, Samples, fold_indices
 from tracedesk.science.fit_stats import (
     ResidualSpread,
@@ -42,6 +42,7 @@ from tracedesk.science.fit_stats import (
     summary_statistics,
     weighted_r_squared,
 )
+from tracedesk.science.narrow_products import gram_matrix
 
 LongArray = NDArray[np.longdouble]
 BasisBuilder = Callable[[FloatArray, FloatArray], None]
@@ -54,6 +55,9 @@ REFINEMENT_STEPS: Final = 2
 GRAM_CONDITION_LIMIT: Final = 1e4
 # A residual sum of squares below this fraction of |W y|^2 is recomputed from explicit residuals.
 CANCELLATION_FRACTION: Final = 1e-8
+# Below this many samples the HAC covariance takes every score row in trace order (the textbook
+# estimator; a few milliseconds at most); above it, rows summed per block of one sample from each fold.
+EXACT_HAC_SAMPLES: Final = 20_000
 
 
 @dataclass(frozen=True)
@@ -105,6 +109,7 @@ class _Fold:
 
     augmented: FloatArray
     weights: FloatArray
+    unweighted: bool = False
 
     @property
     def design(self) -> FloatArray:
@@ -123,6 +128,7 @@ class _Solved:
     coefficients: FloatArray
     weighted_rss: float
     cv_rmse: float | None
+    condition: float
     amplification: float = 1.0  # extra rounding amplification of the route taken (kappa for Gram)
 
 
@@ -160,7 +166,7 @@ def solve_linear_least_squares(
     solved = _solve_by_gram(fold_data) or _solve_by_qr(fold_data, rank_message)
     coefficients, weighted_rss = solved.coefficients, solved.weighted_rss
     extended = coefficients.astype(np.longdouble)
-    condition = _triangular_condition(solved.r_factor)
+    condition = solved.condition
     refined = extended_basis is not None and _refinement_worthwhile(
         samples.count, solved, math.sqrt(weighted_rss), condition
     )
@@ -193,7 +199,7 @@ def _fold(samples: Samples, index: FoldIndex, basis: BasisBuilder, columns: int)
     augmented[:, columns] = samples.y[index]
     if samples.weighted:
         augmented *= weights[:, None]
-    return _Fold(augmented, weights)
+    return _Fold(augmented, weights, unweighted=not samples.weighted)
 
 
 def _solve_by_gram(folds: list[_Fold]) -> _Solved | None:
@@ -207,11 +213,12 @@ def _solve_by_gram(folds: list[_Fold]) -> _Solved | None:
     held-out errors follow from ``G_fold`` too, so cross-validation needs no further pass over the
     samples (and no extra multithreaded BLAS calls, which stall on a busy machine).
     """
-    grams = [fold.augmented.T @ fold.augmented for fold in folds]
+    grams = [gram_matrix(fold.augmented) for fold in folds]
     total = np.sum(grams, axis=0)
     columns = total.shape[0] - 1
     r_factor = _cholesky(total[:columns, :columns])
-    if r_factor is None or _triangular_condition(r_factor) > GRAM_CONDITION_LIMIT:
+    condition = math.inf if r_factor is None else _triangular_condition(r_factor)
+    if r_factor is None or condition > GRAM_CONDITION_LIMIT:
         return None
     projected = _triangular_solve(r_factor, total[:columns, columns], transpose=True)
     coefficients = _triangular_solve(r_factor, projected, transpose=False)
@@ -220,7 +227,7 @@ def _solve_by_gram(folds: list[_Fold]) -> _Solved | None:
         # Nearly exact fit: the difference above is mostly rounding, so measure the residual.
         weighted_rss = sum(float(np.sum((fold.target - fold.design @ coefficients) ** 2)) for fold in folds)
     cv_rmse = _gram_cross_validation(folds, grams, total)
-    return _Solved(r_factor, coefficients, weighted_rss, cv_rmse, _triangular_condition(r_factor))
+    return _Solved(r_factor, coefficients, weighted_rss, cv_rmse, condition, amplification=condition)
 
 
 def _cholesky(matrix: FloatArray) -> FloatArray | None:
@@ -250,8 +257,12 @@ def _gram_cross_validation(folds: list[_Fold], grams: list[FloatArray], total: F
         cross = float(fold_coefficients @ gram[:columns, columns])
         quadratic = float(fold_coefficients @ gram[:columns, :columns] @ fold_coefficients)
         squared_error += max(0.0, float(gram[columns, columns]) - 2.0 * cross + quadratic)
-    weight_total = sum(float(np.sum(fold.weights**2)) for fold in folds)
-    return math.sqrt(squared_error / weight_total)
+    return math.sqrt(squared_error / _weight_total(folds))
+
+
+def _weight_total(folds: list[_Fold]) -> float:
+    """``sum w^2`` over all samples (their count when unweighted)."""
+    return sum(float(fold.weights.size) if fold.unweighted else float(fold.weights @ fold.weights) for fold in folds)
 
 
 def _solve_by_qr(folds: list[_Fold], rank_message: str) -> _Solved:
@@ -260,7 +271,8 @@ def _solve_by_qr(folds: list[_Fold], rank_message: str) -> _Solved:
     r_factor, projected, rho = _combine_factors(factors)
     _check_rank(r_factor, rank_message)
     coefficients = _triangular_solve(r_factor, projected, transpose=False)
-    return _Solved(r_factor, coefficients, rho * rho, _qr_cross_validation(folds, factors))
+    condition = _triangular_condition(r_factor)
+    return _Solved(r_factor, coefficients, rho * rho, _qr_cross_validation(folds, factors), condition)
 
 
 def _qr_factor(augmented: FloatArray) -> FloatArray:
@@ -289,7 +301,10 @@ def _check_rank(r_factor: FloatArray, message: str) -> None:
 
 
 def _triangular_condition(r_factor: FloatArray) -> float:
-    singular = scipy_linalg.svdvals(r_factor, check_finite=False)
+    """2-norm condition number (LAPACK dgesdd directly: scipy's svdvals wrapper costs more than the SVD)."""
+    _, singular, _, info = lapack.dgesdd(r_factor, compute_uv=0)
+    if info != 0:
+        raise ScienceInputError("the singular value decomposition failed (LAPACK dgesdd)")
     return float(singular[0] / singular[-1]) if singular[-1] > 0 else math.inf
 
 
@@ -327,7 +342,7 @@ def _refine(
 def _qr_cross_validation(folds: list[_Fold], factors: list[FloatArray]) -> float | None:
     if len(folds) < 2:
         return None
-    squared_error = weight_total = 0.0
+    squared_error = 0.0
     for held_out, fold in enumerate(folds):
         r_factor, projected, _ = _combine_factors([f for index, f in enumerate(factors) if index != held_out])
         diagonal = np.abs(np.diag(r_factor))
@@ -335,8 +350,7 @@ def _qr_cross_validation(folds: list[_Fold], factors: list[FloatArray]) -> float
             return None
         error = fold.target - fold.design @ _triangular_solve(r_factor, projected, transpose=False)
         squared_error += float(error @ error)
-        weight_total += float(fold.weights @ fold.weights)
-    return math.sqrt(squared_error / weight_total)
+    return math.sqrt(squared_error / _weight_total(folds))
 
 
 @dataclass(frozen=True)
@@ -375,10 +389,12 @@ def summarise_linear_solution(
         parameter_count=columns + extra_parameters,
         weighted_rss=solution.weighted_rss,
         residuals=ResidualSpread(solution.value_rss, samples.count, weighted=samples.weighted),
-        r_squared=weighted_r_squared(samples.y, samples.weights, weighted_rss=solution.weighted_rss),
+        r_squared=weighted_r_squared(
+            samples.y, samples.weights if samples.weighted else None, weighted_rss=solution.weighted_rss
+        ),
         cv_rmse=solution.cv_rmse,
         condition_number=solution.condition_number,
-        scale=float(np.max(np.abs(samples.y * samples.weights))),
+        scale=_largest_weighted_value(samples),
     )
     unscaled = inverse_r @ inverse_r.T
     estimate = _robust_covariance(
@@ -393,21 +409,71 @@ def _robust_covariance(
 ) -> CovarianceEstimate:
     """HAC covariance from the weighted design ``W A`` and bread ``(A^T W^2 A)^-1``.
 
-    The score rows ``W A_t (w_t r_t)`` are written in trace order straight from the solver's
-    cross-validation folds (which interleave the samples by rank), without building ``W A`` again.
+    The score rows ``W A_t (w_t r_t)`` come straight from the solver's cross-validation folds, which
+    interleave the samples by rank, without building ``W A`` again. Row ``m`` of the ``K`` folds holds
+    samples ``mK .. mK + K - 1`` in trace order, so long traces are summed in blocks of ``K``
+    (:class:`~tracedesk.science.fit_covariance.BlockScores`) at no extra cost; short ones keep every
+    row (scattered into trace order) for the textbook estimator.
     """
     folds = solution.fold_rows
     columns = unscaled.shape[0]
-    scores = np.empty((samples.count, columns), order="F")
     residual = np.empty(samples.count)
+    fitted = np.empty(folds[0].shape[0])
+    residuals: list[FloatArray] = []
     for start, augmented in enumerate(folds):
-        design = augmented[:, :columns]
-        fold_residual = augmented[:, columns] - design @ solution.coefficients
-        residual[start :: len(folds)] = fold_residual
-        np.multiply(design, fold_residual[:, None], out=scores[start :: len(folds)])
-    return covariance_from_scores(
-        scores, residual, bread=unscaled, classical=factor * unscaled, parameter_count=parameter_count
+        rows = augmented.shape[0]
+        np.matmul(augmented[:, :columns], solution.coefficients, out=fitted[:rows])
+        residuals.append(np.subtract(augmented[:, columns], fitted[:rows], out=residual[start :: len(folds)]))
+    if samples.count < EXACT_HAC_SAMPLES:
+        blocks = _trace_ordered_scores(folds, residuals, columns)
+    else:
+        blocks = _fold_block_scores(folds, residuals, columns)
+    return covariance_from_blocks(
+        blocks, residual, bread=unscaled, classical=factor * unscaled, parameter_count=parameter_count
     )
+
+
+def _trace_ordered_scores(folds: tuple[FloatArray, ...], residuals: list[FloatArray], columns: int) -> BlockScores:
+    """Every score row, scattered from the interleaved folds into trace order."""
+    count = sum(fold_residual.size for fold_residual in residuals)
+    scores = np.empty((count, columns), order="F")
+    for start, (augmented, fold_residual) in enumerate(zip(folds, residuals, strict=True)):
+        np.multiply(augmented[:, :columns], fold_residual[:, None], out=scores[start :: len(folds)])
+    return BlockScores.of_rows(scores)
+
+
+def _fold_block_scores(folds: tuple[FloatArray, ...], residuals: list[FloatArray], columns: int) -> BlockScores:
+    """Score rows summed over blocks of ``K`` consecutive samples: row ``m`` of every fold.
+
+    Fold ``f`` holds ranks ``f, f + K, ...``, so fold 0 has the most rows (one per block, the last
+    block short when ``K`` does not divide ``n``), fold ``K - 1`` ends every full block, and the
+    short block ends in fold ``n mod K - 1``, the last fold that reaches it. The folds are taken in
+    order through one scratch array, which is left holding exactly those block ends.
+    """
+    size = len(folds)
+    block_count = residuals[0].size
+    full_blocks = sum(fold_residual.size for fold_residual in residuals) // size
+    sums = np.empty((block_count, columns), order="F")
+    np.multiply(folds[0][:, :columns], residuals[0][:, None], out=sums)
+    first = sums[0].copy()
+    if size == 1:
+        return BlockScores(sums, sums, first, 1)
+    ends = np.empty((block_count, columns), order="F")
+    for augmented, fold_residual in zip(folds[1:], residuals[1:], strict=True):
+        rows = fold_residual.size
+        np.multiply(augmented[:, :columns], fold_residual[:, None], out=ends[:rows])
+        sums[:rows] += ends[:rows]
+    if block_count > full_blocks and residuals[1].size == full_blocks:
+        ends[full_blocks] = sums[full_blocks]  # the short block holds fold 0's sample alone
+    return BlockScores(sums, ends, first, size)
+
+
+def _largest_weighted_value(samples: Samples) -> float:
+    """``max |w y|``, the scale of the weighted targets."""
+    if not samples.weighted:
+        return max(abs(float(samples.y.max())), abs(float(samples.y.min())))
+    weighted = np.multiply(samples.y, samples.weights)
+    return float(np.max(np.abs(weighted, out=weighted)))
 
 
 def typical_sigma(samples: Samples) -> float:

@@ -77,10 +77,14 @@ def residual_spread(samples: Samples, residual: FloatArray) -> ResidualSpread:
     return ResidualSpread(float(residual @ residual), samples.count, weighted=samples.weighted)
 
 
-def weighted_r_squared(y: FloatArray, weights: FloatArray, *, weighted_rss: float) -> float | None:
-    """Weighted coefficient of determination; None when ``y`` is constant (no variation to explain)."""
-    if weights[0] == 1.0 and bool(np.all(weights == 1.0)):
-        total = float(np.var(y)) * y.size
+def weighted_r_squared(y: FloatArray, weights: FloatArray | None, *, weighted_rss: float) -> float | None:
+    """Weighted coefficient of determination; None when ``y`` is constant (no variation to explain).
+
+    ``weights`` None (or all ones) means an unweighted fit.
+    """
+    if weights is None or (weights[0] == 1.0 and bool(np.all(weights == 1.0))):
+        deviation = y - float(np.mean(y))
+        total = float(deviation @ deviation)
     else:
         squared_weights = weights * weights
         mean = float(np.sum(squared_weights * y) / np.sum(squared_weights))
