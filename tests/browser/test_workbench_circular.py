@@ -99,3 +99,65 @@ def test_circular_chart_calibrated_by_clicking_with_the_view_turned(page: Page, 
     read_hours, read_value = mapped.json()["values"][0]
     assert abs(read_value - value) < 0.005 * (CHART.value_max - CHART.value_min)  # 0.5 % of full scale
     assert abs(read_hours - hours) < 0.005 * CHART.period_hours
+
+
+def _arc_through_time_zero(swings_deg: tuple[float, ...], *, arm: float = 500.0) -> list[list[float]]:
+    """Pixels on the arc a pen arm of L = D = arm px would draw through time zero (12 o'clock on the 360 px ring),
+    swung inwards by each angle: the pivot sits at phi(r) = arccos(r / 2L) from the time-zero radius
+    (Walter et al. 1999), and every point is L from it."""
+    zero = np.array(CHART.pixel_of(0.0, CHART.value_max))
+    pivot_angle = np.radians(-90.0) + np.arccos(CHART.radius_max / (2.0 * arm))
+    pivot = np.array(CHART.centre) + arm * np.array([np.cos(pivot_angle), np.sin(pivot_angle)])
+    start = np.arctan2(*(zero - pivot)[::-1])
+    swing = start - np.radians(swings_deg)
+    return (pivot + arm * np.column_stack([np.cos(swing), np.sin(swing)])).tolist()
+
+
+def _geometry_spec(pen_arc: dict[str, object]) -> dict[str, object]:
+    return {
+        "kind": "circular",
+        "centre": list(CHART.centre),
+        "value_axis": {"scale": "linear", "min": 0.0, "max": 100.0, "radius_min_px": 60.0, "radius_max_px": 360.0},
+        "period_hours": 24.0,
+        "time_zero_pixel": list(CHART.pixel_of(0.0, CHART.value_max)),
+        "time_direction": "clockwise",
+        "pen_arc": pen_arc,
+    }
+
+
+def test_pen_arm_clicked_on_a_time_line_is_saved_as_the_clicks(page: Page, console: ConsoleWatch) -> None:
+    """A stored arm given as time-line clicks shows the pivot and length of the circle through them (the
+    /geometry/circle answer); new clicks are saved as clicks, and a typed length turns the arm into a typed one."""
+    log_in(page)
+    sheet_id = upload_sheet(page, CHART.png(), name="daily-chart-arcs.png", collection="Boiler house 1980")
+    stored = _arc_through_time_zero((0.0, 12.0, 24.0))
+    api(page, "PUT", f"/api/v1/sheets/{sheet_id}/calibration", data=_geometry_spec({"time_line_points": stored}))
+    circle = api(page, "POST", "/api/v1/geometry/circle", data={"points": stored}).json()
+    open_workbench(page, sheet_id)
+    show_whole(page, CHART.size, CHART.size)
+    form = page.locator("[data-cal-form]")
+    expect(form.get_by_label("Time lines are arcs drawn by a pen on an arm")).to_be_checked()
+    expect(form.get_by_label("Arm length px")).not_to_have_value("")
+    shown = [float(form.get_by_label(label).input_value()) for label in ("Pivot u px", "Pivot v px", "Arm length px")]
+    np.testing.assert_allclose(shown, [*circle["centre"], circle["radius_px"]], atol=0.005)  # shown to 0.01 px
+    assert abs(circle["radius_px"] - 500.0) < 1e-6  # the arm the points were placed with
+
+    clicks = _arc_through_time_zero((2.0, 10.0, 18.0, 26.0))
+    page.get_by_role("button", name="Click points on one time line").click()
+    for u, v in clicks:
+        click_image(page, u, v)
+    page.keyboard.press("Enter")
+    expect(page.locator("[data-cal-report]")).to_contain_text("4 clicks are saved as the arm")
+    expect(page.locator("[data-cal-report]")).to_contain_text("circular chart geometry")
+    page.get_by_role("button", name="Save calibration").click()
+    expect(page.locator("[data-cal-summary]")).to_contain_text("Saved as version 2")
+    arc = api(page, "GET", f"/api/v1/sheets/{sheet_id}/calibration").json()["spec"]["pen_arc"]
+    assert set(arc) == {"time_line_points"}
+    np.testing.assert_allclose(arc["time_line_points"], clicks, atol=1.0)  # a click lands within a screen pixel
+
+    form.get_by_label("Arm length px").fill("500")
+    expect(form.get_by_label("Pivot u px")).not_to_have_value("")
+    page.get_by_role("button", name="Save calibration").click()
+    expect(page.locator("[data-cal-summary]")).to_contain_text("Saved as version 3")
+    arc = api(page, "GET", f"/api/v1/sheets/{sheet_id}/calibration").json()["spec"]["pen_arc"]
+    assert set(arc) == {"pivot_pixel", "length_px"} and arc["length_px"] == 500.0

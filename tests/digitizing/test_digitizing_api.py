@@ -9,6 +9,8 @@ from __future__ import annotations
 
 import csv
 import io
+import math
+from typing import Any
 
 import numpy as np
 import pytest
@@ -17,6 +19,8 @@ from PIL import Image
 
 from tests.science.chart_render import GridLines, LinearChartMapping, PenStroke, render_sheet
 from tracedesk.exports.origins import ORIGIN_HEADER
+from tracedesk.science.calibration import build_calibration
+from tracedesk.science.circular import fit_circle
 
 MAPPING = LinearChartMapping(x_range=(0.0, 48.0), y_range=(0.0, 10.0), box_px=(60.0, 40.0, 1140.0, 540.0))
 FULL_SCALE = 10.0
@@ -199,3 +203,53 @@ def test_spline_fit_is_stored_with_a_note_instead_of_an_equation(
     fit = tech.post(f"/api/v1/traces/{trace_id}/fits", json={"family": "spline"})
     assert fit.status_code == 201, fit.text
     assert fit.json()["equation"]["text"].startswith("no closed-form equation")
+
+
+ARM_PX, PIVOT_V = 2000.0, 290.0
+
+
+def _arc_pixel(x: float, y: float) -> list[float]:
+    """Where (x h, y) lies if the chart is written by a pen arm of 2000 px pivoting at v = 290 on the later side:
+    the straight chart's pixel moved later by L - sqrt(L^2 - (v - v_p)^2) (circular.py, drum charts)."""
+    u, v = MAPPING.data_to_pixel(np.array([x]), np.array([y]))[0]
+    return [float(u + ARM_PX - math.sqrt(ARM_PX**2 - (v - PIVOT_V) ** 2)), float(v)]
+
+
+def _clicked_arm_calibration() -> dict[str, Any]:
+    """Curvilinear, with the pen arm given as 4 pixels clicked along the 24 h line."""
+    corners = [(0.0, 0.0), (48.0, 0.0), (48.0, 10.0), (0.0, 10.0), (24.0, 5.0), (12.0, 2.0)]
+    return {
+        "kind": "curvilinear",
+        "x_axis": {"scale": "time"},
+        "y_axis": {"scale": "linear", "unit": "m"},
+        "control_points": [{"pixel": _arc_pixel(x, y), "value": [x, y]} for x, y in corners],
+        "transform": "affine",
+        "pen_arc": {"time_line_points": [_arc_pixel(24.0, y) for y in (0.5, 3.0, 7.0, 9.5)], "pivot_side": "later"},
+    }
+
+
+def test_pen_arm_clicked_on_a_time_line_is_stored_and_read_through(
+    signed_in: dict[str, TestClient], sheet_id: int
+) -> None:
+    tech = signed_in["technician"]
+    url = f"/api/v1/sheets/{sheet_id}/calibration"
+    spec = _clicked_arm_calibration()
+    stored = tech.put(url, json=spec)
+    assert stored.status_code == 201, stored.text
+    assert stored.json()["spec"]["pen_arc"] == spec["pen_arc"]
+    assert tech.get(url).json()["spec"]["pen_arc"] == spec["pen_arc"]
+    # It reads as the typed arm whose pivot and length are the circle through the clicks (science fit_circle) ...
+    circle = fit_circle(spec["pen_arc"]["time_line_points"])
+    typed = {**spec, "pen_arc": {"pivot_pixel": list(circle.centre), "length_px": circle.radius, "pivot_side": "later"}}
+    pixels = [_arc_pixel(6.0, 8.0), _arc_pixel(40.0, 1.0)]
+    mapped = tech.post(f"{url}/map", json={"pixels": pixels}).json()["values"]
+    np.testing.assert_allclose(mapped, build_calibration(typed).pixels_to_values(pixels), rtol=0, atol=1e-9)
+    # ... and that is the pen arm the chart was drawn with: the points read their true values.
+    np.testing.assert_allclose(mapped, [[6.0, 8.0], [40.0, 1.0]], rtol=0, atol=1e-6)
+    both = {**spec, "pen_arc": {**spec["pen_arc"], **typed["pen_arc"]}, "reason": "pivot typed too"}
+    refused = tech.put(url, json=both, headers={"If-Match": tech.get(url).headers["etag"]})
+    assert (
+        refused.status_code == 422
+        and "pen_arc: give time_line_points or pivot_pixel and length_px, not both" in refused.text
+    ), refused.text
+    assert tech.get(url).json()["version"] == 1

@@ -20,6 +20,7 @@ from tracedesk.science.calibration import (
     CurvilinearStripCalibration,
     build_calibration,
 )
+from tracedesk.science.circular import fit_circle
 from tracedesk.science.errors import ScienceInputError
 
 FloatArray = NDArray[np.float64]
@@ -232,6 +233,116 @@ def test_circular_spec_builds_a_calibration_with_check_points() -> None:
     assert calibration.residual_report.warnings == ()
 
 
+def _time_line_clicks(spec: dict[str, Any], *, wobble_px: float) -> FloatArray:
+    """Pixels along one printed time line of a spec's typed pen arm, pushed off it by +-wobble_px in turn.
+
+    Circular chart: the time-zero arc, 0 to 40 deg of arm swing from time zero inwards (radii 950 to about
+    370 px). Drum chart: the 12 h line, values -10 to 110.
+    """
+    if spec["kind"] == "circular":
+        pivot = np.array(spec["pen_arc"]["pivot_pixel"])
+        offset = np.array(spec["time_zero_pixel"]) - pivot
+        swing = math.atan2(offset[1], offset[0]) - np.radians([0.0, 10.0, 20.0, 30.0, 40.0])
+        normals = np.column_stack([np.cos(swing), np.sin(swing)])
+        points = pivot + spec["pen_arc"]["length_px"] * normals
+    else:
+        points = _drum_pixels(np.array([[12.0, y] for y in (-10.0, 20.0, 50.0, 80.0, 110.0)]), skew_deg=1.5)
+        normals = np.tile([[1.0, 0.0]], (points.shape[0], 1))
+    return points + wobble_px * np.array([1.0, -1.0, 1.0, -1.0, 1.0])[:, None] * normals
+
+
+def _with_arm(spec: dict[str, Any], arm: dict[str, Any]) -> dict[str, Any]:
+    """The spec with another pen_arc (keeping its pivot_side, if any)."""
+    side = {"pivot_side": spec["pen_arc"]["pivot_side"]} if "pivot_side" in spec["pen_arc"] else {}
+    return {**spec, "pen_arc": {**arm, **side}}
+
+
+def _clicked_arm_spec(base: dict[str, Any], *, wobble_px: float = 0.0) -> dict[str, Any]:
+    return _with_arm(base, {"time_line_points": _time_line_clicks(base, wobble_px=wobble_px).tolist()})
+
+
+def _sample_pixels(kind: str) -> FloatArray:
+    """Pixels across the circular chart's value rings, or across the drum chart (a fixed pseudo-random set)."""
+    rng = np.random.default_rng(7)
+    if kind == "circular":
+        radius, angle = rng.uniform(160.0, 940.0, 200), rng.uniform(0.0, 2.0 * math.pi, 200)
+        return np.column_stack([1000.5 + radius * np.cos(angle), 1000.5 + radius * np.sin(angle)])
+    return np.column_stack([rng.uniform(200.0, 2600.0, 200), rng.uniform(100.0, 1100.0, 200)])
+
+
+@pytest.mark.parametrize("base", [_circular_spec, lambda: _drum_spec(1.5)], ids=["circular", "curvilinear"])
+def test_clicked_time_line_gives_the_arm_of_its_fitted_circle(base: Any) -> None:
+    """time_line_points map exactly as the typed arm whose pivot and length are fit_circle's centre and radius
+    of those points (the circle through a pen arc has the pivot as centre and the arm as radius: circular.py)."""
+    spec = base()
+    clicked = _clicked_arm_spec(spec, wobble_px=0.4)
+    circle = fit_circle(clicked["pen_arc"]["time_line_points"])
+    assert circle.rms_px > 0.1  # the wobble keeps the fit from being exact, so the pivot really comes from it
+    typed = _with_arm(spec, {"pivot_pixel": list(circle.centre), "length_px": circle.radius})
+    pixels = _sample_pixels(spec["kind"])
+    expected = build_calibration(typed).pixels_to_values(pixels)
+    assert np.isfinite(expected).mean() > 0.9
+    assert_allclose(build_calibration(clicked).pixels_to_values(pixels), expected, rtol=0, atol=1e-9)
+
+
+@pytest.mark.parametrize("base", [_circular_spec, lambda: _drum_spec(1.5)], ids=["circular", "curvilinear"])
+def test_clicks_exactly_on_the_arc_give_back_the_typed_arm(base: Any) -> None:
+    """Clicks on the pen arc of the typed arm (computed from its pivot and length) read as the typed spec."""
+    spec = base()
+    pixels = _sample_pixels(spec["kind"])
+    expected = build_calibration(spec).pixels_to_values(pixels)
+    assert_allclose(build_calibration(_clicked_arm_spec(spec)).pixels_to_values(pixels), expected, rtol=0, atol=1e-7)
+
+
+@pytest.mark.parametrize(
+    ("base", "arm", "message"),
+    [
+        ("circular", {}, r"^pen_arc: give time_line_points \(3 or more .*\) or pivot_pixel and length_px$"),
+        ("curvilinear", {"pivot_side": "later"}, r"^pen_arc: give time_line_points \(3 or more"),
+        ("circular", {"time_line_points": "clicks"}, r"^pen_arc.time_line_points: expected a list"),
+        (
+            "circular",
+            {"time_line_points": [[0.0, 0.0], [1.0, 1.0]]},
+            r"^pen_arc.time_line_points: a circle needs at least 3 distinct points",
+        ),
+        (
+            "curvilinear",
+            {"time_line_points": [[0.0, 0.0], [10.0, 10.0], [20.0, 20.0]], "pivot_side": "later"},
+            r"^pen_arc.time_line_points: the points lie on one line",
+        ),
+        (
+            "circular",
+            {"time_line_points": [[0.0, 0.0], [1.0], [2.0, 0.0]]},
+            r"^pen_arc.time_line_points\[1\]: expected a pair",
+        ),
+        (
+            "circular",
+            {"time_line_points": [[0.0, 0.0], [1.0, math.nan], [2.0, 0.0]]},
+            r"^pen_arc.time_line_points\[1\]\[1\]: must be a finite number",
+        ),
+        ("circular", {"time_line_points": [[0.0, 0.0], [1.0, 1.0], [2.0, 0.0]]}, r"^pen_arc: an arm of 1 px"),
+    ],
+)
+def test_bad_clicked_arms_are_refused_naming_pen_arc(base: str, arm: dict[str, Any], message: str) -> None:
+    spec = {"circular": _circular_spec, "curvilinear": _drum_spec}[base]()
+    with pytest.raises(ScienceInputError, match=message):
+        build_calibration({**spec, "pen_arc": arm})
+
+
+BOTH_ARMS = r"^pen_arc: give time_line_points or pivot_pixel and length_px, not both$"
+
+
+@pytest.mark.parametrize("base", [_circular_spec, _drum_spec], ids=["circular", "curvilinear"])
+def test_clicked_and_typed_arm_together_are_refused(base: Any) -> None:
+    spec = base()
+    both = {**spec["pen_arc"], "time_line_points": _time_line_clicks(spec, wobble_px=0.0).tolist()}
+    with pytest.raises(ScienceInputError, match=BOTH_ARMS):
+        build_calibration({**spec, "pen_arc": both})
+    del both["length_px"]  # a pivot alone still counts as typed
+    with pytest.raises(ScienceInputError, match=BOTH_ARMS):
+        build_calibration({**spec, "pen_arc": both})
+
+
 def _mapping_for(kind: str) -> ChartMapping:
     specs = {
         "similarity": lambda: _cartesian_spec("similarity"),
@@ -361,6 +472,8 @@ SPEC_MAKERS = {
     "circular": _circular_spec,
     "strip_speed": _strip_spec,
     "curvilinear": _drum_spec,
+    "circular, clicked arm": lambda: _clicked_arm_spec(_circular_spec(), wobble_px=0.4),
+    "curvilinear, clicked arm": lambda: _clicked_arm_spec(_drum_spec(1.5), wobble_px=0.4),
 }
 BAD_NUMBERS = [math.nan, math.inf, -math.inf, 0.0, -1.0, 1e308, -1e308, 1e-308, 5e-324, 1e15, -1e15]
 

@@ -78,7 +78,7 @@ def test_every_family_fits_and_serialises(
         ({"family": "fourier", "degree": 1, "period_bounds": "wide"}, "period_bounds must be two numbers"),
         ({"family": "logarithmic"}, "needs x > 0"),
         ({"family": "exponential", "absolute_sigma": "yes"}, "absolute_sigma must be true or false"),
-        ({"family": "interpolation", "sigma": [1.0] * 10}, "takes no sigma"),
+        ({"family": "interpolation", "sigma": [-1.0] * 10}, "sigma must be positive"),
     ],
 )
 def test_dispatcher_refuses_bad_requests(kwargs: dict[str, object], message: str) -> None:

@@ -62,7 +62,7 @@ def compute_fit(session: Session, trace: Trace, family: str, options: dict[str, 
     if bad:
         raise Unprocessable(f"option {sorted(bad)[0]!r} cannot be set in a fit request")
     x, y, sigma, calibration_version = fit_inputs(session, trace)
-    calibration = calibration_factor_of(session, trace) if family != "interpolation" else None
+    calibration = calibration_factor_of(session, trace)
     return fit_model(x, y, family=family, sigma=sigma, calibration=calibration, **options), calibration_version
 
 

@@ -33,8 +33,12 @@ class CalibrationIn(BaseModel):
       ``"auto"|"similarity"|"affine"|"projective"|"polynomial2"``.
     - ``circular``: ``centre``, ``value_axis`` ``{"scale", "min", "max", "radius_min_px", "radius_max_px"}``,
       ``period_hours``, ``time_zero_pixel``, ``time_direction`` ``"clockwise"|"counterclockwise"``,
-      ``pen_arc``? ``{"pivot_pixel": [u, v], "length_px": L}``, ``start``? ISO 8601.
-    - ``curvilinear``: the cartesian fields plus ``pen_arc`` ``{"pivot_pixel", "length_px", "pivot_side"}``.
+      ``pen_arc``? (below), ``start``? ISO 8601.
+    - ``curvilinear``: the cartesian fields plus ``pen_arc`` with ``pivot_side`` ``"later"|"earlier"``.
+    - ``pen_arc``: the pen arm, either typed ``{"pivot_pixel": [u, v], "length_px": L}`` (e.g. from an instrument
+      drawing; taken as exact) or clicked ``{"time_line_points": [[u, v], ...]}`` (3 or more pixels along one
+      printed time line; the circle through them gives pivot and length, and their click uncertainty is
+      propagated); exactly one of the two.
     - ``strip_speed``: ``y_axis``, value ``control_points`` ``[{"pixel", "value": y}]``, ``time_zero_pixel``,
       ``time_direction`` ``"right"|"left"|"down"|"up"``, ``chart_speed_mm_per_hour``, ``scan_dpi``.
 

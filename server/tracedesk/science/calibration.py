@@ -25,8 +25,13 @@ JSON shapes (pixels ``[u, v]`` in px of the stored image; ``?`` marks optional f
                                                      axis that has a start
     cartesian   {"kind": "cartesian", "x_axis": axis, "y_axis": axis, "control_points": [point, ...],
                  "transform"?: "auto" | "similarity" | "affine" | "projective" | "polynomial2"}
+    pen_arc     {"pivot_pixel": [u, v], "length_px": L}   the arm as typed, e.g. from an instrument drawing
+                or {"time_line_points": [[u, v], ...]}    3 or more pixels clicked along one printed time
+                                                          line: the circle through them has the pivot as
+                                                          its centre and the arm length L as its radius
+                                                          (exactly one of the two forms)
     curvilinear cartesian fields with "kind": "curvilinear", plus
-                 "pen_arc": {"pivot_pixel": [u, v], "length_px": L, "pivot_side": "later" | "earlier"}
+                 "pen_arc": pen_arc with "pivot_side": "later" | "earlier"
     strip_speed {"kind": "strip_speed", "y_axis": axis, "control_points": [{"pixel": [u, v], "value": y}],
                  "time_zero_pixel": [u, v], "time_direction": "right" | "left" | "down" | "up",
                  "chart_speed_mm_per_hour": s, "scan_dpi": d, "start"?: ISO 8601}
@@ -35,11 +40,15 @@ JSON shapes (pixels ``[u, v]`` in px of the stored image; ``?`` marks optional f
                                 "radius_min_px": r0, "radius_max_px": r1},
                  "period_hours": P, "time_zero_pixel": [u, v],
                  "time_direction": "clockwise" | "counterclockwise",
-                 "pen_arc"?: {"pivot_pixel": [u, v], "length_px": L}, "start"?: ISO 8601,
+                 "pen_arc"?: pen_arc, "start"?: ISO 8601,
                  "check_points"?: [point, ...]}   (x = elapsed hours or ISO 8601, y = value)
 
 Errors are :class:`~tracedesk.science.errors.ScienceInputError` whose message starts with the path of
 the offending field (``control_points[2].pixel[1]: must be a finite number, got nan``).
+
+A pen arm fitted from ``time_line_points`` carries their click uncertainty into every reading
+(:mod:`~tracedesk.science.calibration_covariance` moves each point); a typed pivot and length are taken
+as exact.
 """
 
 from __future__ import annotations
@@ -60,7 +69,13 @@ from tracedesk.science.axes import (
     pixels_per_hour_from_chart_speed,
     scale_from_name,
 )
-from tracedesk.science.circular import ArcStraightening, CircularCalibration, PenArm, RadiusLaw
+from tracedesk.science.circular import (
+    ArcStraightening,
+    CircularCalibration,
+    PenArm,
+    RadiusLaw,
+    pen_arm_from_time_line,
+)
 from tracedesk.science.errors import ScienceInputError
 from tracedesk.science.homogeneous import invert_homogeneous_matrix
 from tracedesk.science.registration import (
@@ -90,6 +105,8 @@ def _quiet() -> np.errstate:
 
 CALIBRATION_KINDS: Final = ("cartesian", "curvilinear", "strip_speed", "circular")
 PIVOT_SIDES: Final = {"later": 1.0, "earlier": -1.0}
+# A pen arm is typed (from an instrument drawing) with these fields, or clicked as "time_line_points".
+PEN_ARC_TYPED_FIELDS: Final = ("pivot_pixel", "length_px")
 IMAGE_DIRECTIONS: Final = {"right": (1.0, 0.0), "left": (-1.0, 0.0), "down": (0.0, 1.0), "up": (0.0, -1.0)}
 # Value control points of a strip_speed calibration spreading less than this across their best line
 # are treated as clicked along one time line (the value scale then fixes the time axis direction).
@@ -615,12 +632,31 @@ def _cartesian_from_spec(spec: Mapping[str, Any]) -> ChartMapping:
 
 
 def _pen_arm(spec: Any) -> PenArm:
+    """The pen arm of ``pen_arc``: fitted to its clicked time-line points, or as typed (pivot and length)."""
     arc = _mapping(spec, field="pen_arc")
+    clicked = arc.get("time_line_points") is not None
+    typed = any(arc.get(key) is not None for key in PEN_ARC_TYPED_FIELDS)
+    if clicked and typed:
+        raise ScienceInputError("pen_arc: give time_line_points or pivot_pixel and length_px, not both")
+    if not clicked and not typed:
+        raise ScienceInputError(
+            "pen_arc: give time_line_points (3 or more pixels clicked along one time line) or pivot_pixel and length_px"
+        )
+    if clicked:
+        return _pen_arm_from_clicks(arc["time_line_points"])
     pivot = _pair(_required(arc, "pivot_pixel", prefix="pen_arc."), field="pen_arc.pivot_pixel")
     length = _number(_required(arc, "length_px", prefix="pen_arc."), field="pen_arc.length_px")
     if length <= 0.0:
         raise ScienceInputError(f"pen_arc.length_px: must be > 0, got {length:g}")
     return PenArm(pivot_pixel=pivot, length_px=length)
+
+
+def _pen_arm_from_clicks(points: Any) -> PenArm:
+    """The arm whose tip's circle passes through pixels clicked along one printed time line (px)."""
+    field = "pen_arc.time_line_points"
+    pixels = [_pair(point, field=f"{field}[{index}]") for index, point in enumerate(_items(points, field=field))]
+    arm, _ = pen_arm_from_time_line(np.array(pixels, dtype=np.float64).reshape(-1, 2), field=field)
+    return arm
 
 
 def _curvilinear_from_spec(spec: Mapping[str, Any]) -> ChartMapping:

@@ -1,9 +1,10 @@
 """The calibration's own uncertainty, shared by every sample of a trace, as a low-rank covariance factor.
 
 A calibration is fitted to a few clicked pixels (control points; the centre, time-zero pixel and ring
-radii of a circular chart). Their click errors move the fitted mapping, and the moved mapping shifts every
-sample read through it together: a systematic error, fully correlated along the trace. A fit absorbs it
-into its coefficients and leaves the residuals unchanged, so no residual-based covariance can see it.
+radii of a circular chart; the points clicked along one time line that give a pen arm). Their click errors
+move the fitted mapping, and the moved mapping shifts every sample read through it together: a systematic
+error, fully correlated along the trace. A fit absorbs it into its coefficients and leaves the residuals
+unchanged, so no residual-based covariance can see it.
 
 Propagation (JCGM 100:2008, GUM, 5.2, correlated quantities; first order as in 5.1.2): the ``m`` clicked
 pixel coordinates ``q`` are independent with standard uncertainty ``s`` (px) each, and the values read at
@@ -14,6 +15,10 @@ coordinate moved by ``+-h`` (central differences, GUM 5.1.3 note 2 allows numeri
 coefficients, from memory), with the transform pinned to the one chosen, so this holds for every kind of
 calibration. For a least-squares transform it equals, to first order, the parameter covariance
 ``C_theta = s^2 (J^T J)^-1`` pushed through ``dv / dtheta``.
+
+A pen arm clicked as ``pen_arc.time_line_points`` is refitted from its moved points like any other click
+(its circle fit moves the pivot and the arm length); one typed as ``pivot_pixel`` + ``length_px`` is held
+fixed and named in :attr:`CalibrationFactor.exact_inputs`, so a reader knows that part is not included.
 
 ``s`` is the control-point residual SD, ``sqrt(sum |r|^2 / dof)`` with ``dof`` the residual components
 minus the transform's parameters. With no spare point (an exact fit, or a circular chart whose geometry is
@@ -47,6 +52,11 @@ ONE_COMPONENT_TRANSFORMS: Final = frozenset({"chart_speed"})
 DEFAULT_CLICK_STEP_PX: Final = 0.05
 SOURCE_RESIDUALS: Final = "control_point_residuals"
 SOURCE_LINE_FLOOR: Final = "line_width_floor"
+# Degrees of freedom of the judged line-width floor: GUM G.4.2 gives nu = (1/2) (u / Delta u)^2 for a type B
+# estimate known to a relative Delta u / u; the floor is judged good to about 25 % (nu = 8; from memory).
+FLOOR_DOF: Final = 8.0
+# Calibration kinds whose spec may carry a pen arm ("pen_arc").
+PEN_ARC_KINDS: Final = frozenset({"circular", "curvilinear"})
 
 
 @dataclass(frozen=True, eq=False)
@@ -61,28 +71,45 @@ class CalibrationFactor:
         ``s``, the standard uncertainty of one clicked coordinate (px).
     source : str
         ``"control_point_residuals"`` or ``"line_width_floor"`` (how ``s`` was found).
+    exact_inputs : tuple of str
+        Top-level spec fields taken as exact, so no column stands for them: ``("pen_arc",)`` when the pen
+        arm is typed as ``pivot_pixel`` + ``length_px`` (e.g. from an instrument drawing), empty otherwise.
+        An arm given as ``time_line_points`` is clicked, and its points have columns like any click.
+    dof : float
+        Degrees of freedom of ``s`` (infinity when unknown): for the Welch-Satterthwaite band factors.
     """
 
     x: FloatArray
     y: FloatArray
     click_sigma_px: float
     source: str
+    exact_inputs: tuple[str, ...] = ()
+    dof: float = math.inf
 
     def take(self, index: NDArray[np.intp] | NDArray[np.bool_]) -> CalibrationFactor:
         """The rows of the samples ``index`` selects (a mask or an order), e.g. finite samples sorted by x."""
-        return CalibrationFactor(self.x[index], self.y[index], self.click_sigma_px, self.source)
+        return CalibrationFactor(
+            self.x[index], self.y[index], self.click_sigma_px, self.source, self.exact_inputs, self.dof
+        )
 
 
-def click_sigma(report: ResidualReport, *, line_width_px: float) -> tuple[float, str]:
-    """``s`` (px) and its source: the residual SD of the control points, or the line-width floor."""
+def click_sigma(report: ResidualReport, *, line_width_px: float) -> tuple[float, str, float]:
+    """``s`` (px), its source and its degrees of freedom: the residual SD of the control points (with the
+    residual components minus the transform's parameters), or the line-width floor (:data:`FLOOR_DOF`)."""
     parameters = TRANSFORM_PARAMETERS.get(report.transform)
     per_point = 1 if report.transform in ONE_COMPONENT_TRANSFORMS else 2
     dof = per_point * report.residuals_px.shape[0] - (parameters or 0)
     if parameters is not None and dof >= 1:
         spread = math.sqrt(float(np.sum(report.residuals_px**2)) / dof)
         if math.isfinite(spread):
-            return spread, SOURCE_RESIDUALS
-    return pixel_sigma(calibration_rms_px=0.0, line_width_px=line_width_px), SOURCE_LINE_FLOOR
+            return spread, SOURCE_RESIDUALS, float(dof)
+    return pixel_sigma(calibration_rms_px=0.0, line_width_px=line_width_px), SOURCE_LINE_FLOOR, FLOOR_DOF
+
+
+def _pen_arc(spec: Mapping[str, Any]) -> Mapping[str, Any] | None:
+    """The ``pen_arc`` of the kinds that use one (circular, curvilinear), else None."""
+    arc = spec.get("pen_arc") if spec.get("kind") in PEN_ARC_KINDS else None
+    return arc if isinstance(arc, Mapping) else None
 
 
 def clicked_inputs(spec: Mapping[str, Any]) -> list[Path]:
@@ -91,12 +118,21 @@ def clicked_inputs(spec: Mapping[str, Any]) -> list[Path]:
     if spec.get("kind") == "circular":
         paths += [("centre", 0), ("centre", 1), ("time_zero_pixel", 0), ("time_zero_pixel", 1)]
         paths += [("value_axis", "radius_min_px"), ("value_axis", "radius_max_px")]
-        return paths
-    for index in range(len(spec.get("control_points") or [])):
-        paths += [("control_points", index, "pixel", 0), ("control_points", index, "pixel", 1)]
+    else:
+        for index in range(len(spec.get("control_points") or [])):
+            paths += [("control_points", index, "pixel", 0), ("control_points", index, "pixel", 1)]
     if spec.get("kind") == "strip_speed":
         paths += [("time_zero_pixel", 0), ("time_zero_pixel", 1)]
+    arc = _pen_arc(spec)
+    for index in range(len((arc or {}).get("time_line_points") or [])):
+        paths += [("pen_arc", "time_line_points", index, 0), ("pen_arc", "time_line_points", index, 1)]
     return paths
+
+
+def exact_inputs(spec: Mapping[str, Any]) -> tuple[str, ...]:
+    """Top-level spec fields the factor takes as exact: a pen arm typed as pivot and length."""
+    arc = _pen_arc(spec)
+    return ("pen_arc",) if arc is not None and arc.get("time_line_points") is None else ()
 
 
 def _thawed(obj: Any) -> Any:
@@ -164,7 +200,7 @@ def calibration_factor(
     if not math.isfinite(step_px) or step_px <= 0.0:
         raise ScienceInputError(f"step_px: must be a finite number > 0, got {step_px!r}")
     uv = as_point_array(pixels, field="pixels")
-    sigma, source = click_sigma(mapping.residual_report, line_width_px=line_width_px)
+    sigma, source, dof = click_sigma(mapping.residual_report, line_width_px=line_width_px)
     base = _pinned(spec, mapping)
     paths = clicked_inputs(base)
     columns = np.empty((uv.shape[0], 2, len(paths)))
@@ -173,7 +209,7 @@ def calibration_factor(
         minus = build(_moved(base, path, -step_px)).pixels_to_values(uv)
         columns[:, :, column] = _wrapped(plus - minus, mapping.x_period_hours) / (2.0 * step_px)
     columns *= sigma
-    return CalibrationFactor(columns[:, 0, :], columns[:, 1, :], sigma, source)
+    return CalibrationFactor(columns[:, 0, :], columns[:, 1, :], sigma, source, exact_inputs(base), dof)
 
 
 def _wrapped(difference: FloatArray, period: float | None) -> FloatArray:

@@ -162,13 +162,18 @@ class PenArm:
         _finite(self.length_px, field="pen_arc.length_px", minimum=0.0)
 
 
-def pen_arm_from_time_line(points: ArrayLike) -> tuple[PenArm, CircleFit]:
-    """Pen arm from three or more pixels clicked along one printed time line (an arc).
+def pen_arm_from_time_line(points: ArrayLike, *, field: str = "time_line_points") -> tuple[PenArm, CircleFit]:
+    """Pen arm from three or more pixels (px) clicked along one printed time line (an arc).
 
     The arc is part of the circle the pen tip draws around the pivot, so the fitted circle's centre is
-    the pivot and its radius the arm length (px).
+    the pivot and its radius the arm length (px). ``field`` names the points in error messages.
+
+    Raises
+    ------
+    ScienceInputError
+        Fewer than three distinct points, or points on one line (as :func:`fit_circle`).
     """
-    circle = fit_circle(points, field="time_line_points")
+    circle = fit_circle(points, field=field)
     return PenArm(pivot_pixel=circle.centre, length_px=circle.radius), circle
 
 

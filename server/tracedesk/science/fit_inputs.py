@@ -173,12 +173,45 @@ def merge_duplicate_x(x: FloatArray, y: FloatArray, weights: FloatArray) -> Merg
     ``weights`` are ``1 / sigma``; the merged weight is ``sqrt(sum w^2)``, the uncertainty of the
     weighted mean. ``merged_count`` is how many samples disappeared into others.
     """
-    order = np.argsort(x, kind="stable")
-    xs, ys, ws = x[order], y[order], weights[order]
-    starts = np.flatnonzero(np.r_[True, np.diff(xs) != 0.0])
-    if starts.size == xs.size:
-        return MergedSamples(xs, ys, ws, 0)
-    squared = ws * ws
-    weight_sum = np.add.reduceat(squared, starts)
-    means = np.add.reduceat(squared * ys, starts) / weight_sum
-    return MergedSamples(xs[starts], means, np.sqrt(weight_sum), int(xs.size - starts.size))
+    groups = DuplicateGroups.of(x, weights)
+    xs = x[groups.order]
+    if groups.starts is None:
+        return MergedSamples(xs, y[groups.order], weights[groups.order], 0)
+    means = groups.merge(y)
+    return MergedSamples(xs[groups.starts], means, groups.merged_weights(), int(xs.size - groups.starts.size))
+
+
+@dataclass(frozen=True)
+class DuplicateGroups:
+    """The sort by ``x`` and the runs of equal ``x`` that :func:`merge_duplicate_x` merges.
+
+    Kept as an object so that any quantity linear in ``y`` (a shift of every sample, a column per
+    calibration input) can be merged exactly as the samples were.
+    """
+
+    order: NDArray[np.intp]
+    starts: NDArray[np.intp] | None  # first index of each run in sorted order; None: no duplicates
+    squared_weights: FloatArray  # w^2 in sorted order
+
+    @classmethod
+    def of(cls, x: FloatArray, weights: FloatArray) -> DuplicateGroups:
+        order = np.argsort(x, kind="stable")
+        xs, ws = x[order], weights[order]
+        starts = np.flatnonzero(np.r_[True, np.diff(xs) != 0.0])
+        return cls(order, None if starts.size == xs.size else starts, ws * ws)
+
+    def merge(self, values: FloatArray) -> FloatArray:
+        """Weighted means of ``values`` (shape ``(n,)`` or ``(n, m)``, in the samples' original order)."""
+        ordered = values[self.order]
+        if self.starts is None:
+            return ordered
+        squared = self.squared_weights if ordered.ndim == 1 else self.squared_weights[:, None]
+        merged: FloatArray = np.add.reduceat(squared * ordered, self.starts, axis=0)
+        total = np.add.reduceat(self.squared_weights, self.starts)
+        return merged / (total if merged.ndim == 1 else total[:, None])
+
+    def merged_weights(self) -> FloatArray:
+        """``sqrt(sum w^2)`` per run: ``1 / sigma`` of each weighted mean."""
+        if self.starts is None:
+            return np.sqrt(self.squared_weights)
+        return np.sqrt(np.add.reduceat(self.squared_weights, self.starts))

@@ -18,7 +18,7 @@ from numpy.typing import ArrayLike
 from tracedesk.science.errors import ScienceInputError
 from tracedesk.science.fit_covariance import standard_error_inflation
 from tracedesk.science.fit_inputs import BoolArray, FloatArray, check_level
-from tracedesk.science.fit_stats import StatsDict, student_t_quantile
+from tracedesk.science.fit_stats import NO_BAND_MESSAGE, StatsDict, student_t_quantiles
 
 EXTRAPOLATION_CAUTION: Final = (
     "Some requested x values lie outside the traced range; values there are extrapolated from the "
@@ -104,6 +104,18 @@ class FitResult:
         ``d reported / d internal`` parameters (linear part of the reparametrisation), shape
         ``(len(parameter_names), len(theta))``; None when the reported parameters are the internal
         ones (padded with zero rows for a parameter held fixed, e.g. a known Fourier period).
+    covariance_dof : float or None
+        Degrees of freedom of the covariance's own part (excluding the calibration's): None for the
+        fit's residual ``dof`` (estimated from the residuals), infinity when it was propagated from
+        given uncertainties (exact interpolation).
+    calibration_covariance : ndarray or None
+        The calibration's part of ``model.internal_covariance`` (internal parameters), if added.
+    calibration_dof : float
+        Degrees of freedom of the calibration's click uncertainty (control-point residual dof).
+
+    Bands combine the two parts with the Welch-Satterthwaite effective degrees of freedom
+    ``nu = u^4 / (u_fit^4 / nu_fit + u_cal^4 / nu_cal)`` at each ``x`` (GUM, JCGM 100:2008, G.4.1), so
+    a calibration fitted from a few control points widens the band through its Student t factor.
     """
 
     family: str
@@ -120,6 +132,9 @@ class FitResult:
     typical_sigma: float = field(default=1.0, repr=False)
     independent_covariance: FloatArray | None = field(default=None, repr=False)
     parameter_map: FloatArray | None = field(default=None, repr=False)
+    covariance_dof: float | None = field(default=None, repr=False)
+    calibration_covariance: FloatArray | None = field(default=None, repr=False)
+    calibration_dof: float = field(default=math.inf, repr=False)
 
     def __post_init__(self) -> None:
         # Said in the reported parametrisation, the one whose standard errors the user reads.
@@ -157,17 +172,33 @@ class FitResult:
         covariance = self.model.internal_covariance
         if covariance is None:
             raise ScienceInputError(f"the {self.family} fit carries no covariance, so it has no band")
-        dof = self.stats["dof"]
-        multiplier = student_t_quantile(level, float(dof if dof is not None else 0))
         gradient = self.model.parameter_gradient(values)
-        variance = np.einsum("ij,jk,ik->i", gradient, covariance, gradient)
+        variance = np.maximum(np.einsum("ij,jk,ik->i", gradient, covariance, gradient), 0.0)
+        calibration = np.zeros_like(variance)
+        if self.calibration_covariance is not None:
+            calibration = np.einsum("ij,jk,ik->i", gradient, self.calibration_covariance, gradient)
+            calibration = np.clip(calibration, 0.0, variance)
         if kind == "prediction":
             variance = variance + self._new_sample_variance(sigma)
-        half_width = multiplier * np.sqrt(np.maximum(variance, 0.0))
+        multiplier = self._coverage_factor(level, fit_part=variance - calibration, calibration_part=calibration)
+        half_width = multiplier * np.sqrt(variance)
         fitted = self.model.evaluate(values)
         outside = self.outside_domain(values)
         caution = EXTRAPOLATION_CAUTION if bool(outside.any()) else None
         return Band(kind, level, values, fitted, fitted - half_width, fitted + half_width, outside, caution)
+
+    def _coverage_factor(self, level: float, *, fit_part: FloatArray, calibration_part: FloatArray) -> FloatArray:
+        """Student t factor per point with the Welch-Satterthwaite degrees of freedom of the two parts."""
+        dof = self.stats["dof"] if self.covariance_dof is None else self.covariance_dof
+        fit_dof = float(dof if dof is not None else 0)
+        total = fit_part + calibration_part
+        if fit_dof <= 0.0 and (bool(np.any(fit_part > 0.0)) or not bool(np.any(total > 0.0))):
+            raise ScienceInputError(NO_BAND_MESSAGE)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            spread = np.where(fit_part > 0.0, fit_part**2 / fit_dof, 0.0)
+            spread = spread + np.where(calibration_part > 0.0, calibration_part**2 / self.calibration_dof, 0.0)
+            effective = np.where(spread > 0.0, total**2 / spread, math.inf)
+        return student_t_quantiles(level, effective)
 
     def _new_sample_variance(self, sigma: float | None) -> float:
         """Variance of one new sample (``y`` units squared) for a prediction band.

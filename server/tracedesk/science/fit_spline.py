@@ -30,6 +30,7 @@ from tracedesk.science.errors import ScienceInputError
 from tracedesk.science.fit_covariance import serial_robust_covariance
 from tracedesk.science.fit_inputs import (
     DEFAULT_CV_FOLDS,
+    DuplicateGroups,
     FloatArray,
     MergedSamples,
     Samples,
@@ -197,6 +198,34 @@ def _spline_result(
         typical_sigma=float(np.sqrt(np.mean(1.0 / merged.weights**2))),
         independent_covariance=None if estimate is None else estimate.independent,
     )
+
+
+def spline_response(x: FloatArray, weights: FloatArray, shifts: FloatArray, *, smoothing: float) -> FloatArray:
+    """Shift of the spline coefficients per column of ``shifts`` (sample ``y`` shifts), smoothing held fixed.
+
+    With ``lam`` fixed the smoothing spline is linear in ``y`` (``c = S y``), so a shift of every sample
+    moves the coefficients by the spline of that shift, merged over repeated ``x`` like the samples. The
+    GCV choice of ``lam`` also depends on ``y``; that second-order effect is left out.
+
+    Parameters
+    ----------
+    x, weights : ndarray, shape (n,)
+        The samples' abscissae and fit weights ``1 / sigma`` (in the rows' order of ``shifts``).
+    shifts : ndarray, shape (n, m)
+        ``y`` shifts (``y`` units), one column per source.
+    smoothing : float
+        The fit's ``lam``.
+
+    Returns
+    -------
+    ndarray, shape (coefficients, m)
+    """
+    groups = DuplicateGroups.of(x, weights)
+    ordered_x = x[groups.order]
+    merged_x = ordered_x if groups.starts is None else ordered_x[groups.starts]
+    unit = make_smoothing_spline(merged_x, groups.merge(shifts), w=groups.merged_weights() ** 2, lam=smoothing)
+    response: FloatArray = np.asarray(unit.c, dtype=np.float64)
+    return response
 
 
 def _coefficient_smoother(merged: MergedSamples, lam: float) -> FloatArray:

@@ -165,13 +165,20 @@ def noise_variance_factor(*, weighted_rss: float, dof: float, absolute_sigma: bo
     return weighted_rss / dof if dof > 0 else 0.0
 
 
+NO_BAND_MESSAGE: Final = "this fit has no residual degrees of freedom, so it has no confidence or prediction band"
+
+
 def student_t_quantile(level: float, dof: float) -> float:
     """Two-sided Student t multiplier for a ``level`` band with ``dof`` degrees of freedom."""
     if dof <= 0:
-        raise ScienceInputError(
-            "this fit has no residual degrees of freedom, so it has no confidence or prediction band"
-        )
+        raise ScienceInputError(NO_BAND_MESSAGE)
     return float(scipy_stats.t.ppf(0.5 + level / 2.0, dof))
+
+
+def student_t_quantiles(level: float, dof: FloatArray) -> FloatArray:
+    """Two-sided Student t multipliers for a ``level`` band, one per entry of ``dof`` (> 0; infinity: normal)."""
+    quantiles: FloatArray = np.asarray(scipy_stats.t.ppf(0.5 + level / 2.0, dof), dtype=np.float64)
+    return quantiles
 
 
 def covariance_from_jacobian(jacobian: FloatArray, *, variance_factor: float) -> FloatArray:

@@ -17,7 +17,7 @@ exponential     a exp(b x) + c
 power           a x^b + c  (x > 0)
 logarithmic     a + b ln x  (x > 0)
 spline          cubic smoothing spline, GCV                   smoothing (None: GCV)
-interpolation   exact polynomial through equally spaced nodes degree (default: samples - 1); no sigma
+interpolation   exact polynomial through equally spaced nodes degree (default: samples - 1); sigma is propagated
 =============== ============================================= =========================================
 
 All least-squares families also accept ``cv_folds`` (default 5) and ``absolute_sigma`` (default
@@ -76,6 +76,7 @@ _FITTERS: Final[Mapping[str, Callable[..., FitResult]]] = {
     "power": fit_power,
     "logarithmic": fit_logarithmic,
     "spline": fit_spline,
+    "interpolation": fit_interpolation,
 }
 FAMILIES: Final = tuple(_FAMILY_OPTIONS)
 
@@ -122,10 +123,6 @@ def fit_model(
         raise ScienceInputError("absolute_sigma must be true or false")
     if "period_bounds" in options and options["period_bounds"] is not None:
         options["period_bounds"] = _pair(options["period_bounds"])
-    if family == "interpolation":
-        if sigma is not None:
-            raise ScienceInputError("exact interpolation passes through the nodes; it takes no sigma")
-        return fit_interpolation(x, y, **options)
     result = _FITTERS[family](x, y, sigma=sigma, **options)
     return result if calibration is None else with_calibration_covariance(result, x, sigma, calibration)
 

@@ -33,11 +33,25 @@ function completePoints(points, scales, options) {
   return { points: out };
 }
 
+// The pixels clicked along one time line, kept with the form while the pen arm comes from them: the spec then
+// carries the clicks (pen_arc.time_line_points), so the server fits the arm and counts their click uncertainty.
+// Typing a pivot or length drops them (a typed arm is taken as exact).
+export function setTimeLinePoints(form, points) {
+  if (Array.isArray(points) && points.length) form.dataset.timeLinePoints = JSON.stringify(points);
+  else delete form.dataset.timeLinePoints;
+}
+
+export function timeLinePoints(form) {
+  const text = form.dataset.timeLinePoints;
+  return text ? JSON.parse(text) : null;
+}
+
 function penArc(form, withSide) {
+  const clicked = timeLinePoints(form);
   const pivot = [number(form.pivot_u.value), number(form.pivot_v.value)];
   const length = number(form.arm_length.value);
-  if (!pivot.every(isNumber) || !(length > 0)) return null;
-  const arc = { pivot_pixel: pivot, length_px: length };
+  if (!clicked && (!pivot.every(isNumber) || !(length > 0))) return null;
+  const arc = clicked ? { time_line_points: clicked } : { pivot_pixel: pivot, length_px: length };
   if (withSide) arc.pivot_side = form.pivot_side.value;
   return arc;
 }
@@ -102,11 +116,17 @@ export function specFromForm(form, points) {
 
 const setValue = (input, value) => { input.value = value === undefined || value === null ? "" : String(value); };
 
+// A typed arm fills pivot and length; a clicked one keeps its points, and the "time-line-loaded" event asks
+// the geometry picks (calibration-geometry.js) to show the pivot and length of the circle through them.
 function fillArc(form, arc) {
-  setValue(form.pivot_u, arc ? arc.pivot_pixel[0] : "");
-  setValue(form.pivot_v, arc ? arc.pivot_pixel[1] : "");
-  setValue(form.arm_length, arc ? arc.length_px : "");
+  const clicked = arc && Array.isArray(arc.time_line_points) ? arc.time_line_points : null;
+  const pivot = arc && !clicked && Array.isArray(arc.pivot_pixel) ? arc.pivot_pixel : [];
+  setTimeLinePoints(form, clicked);
+  setValue(form.pivot_u, pivot[0]);
+  setValue(form.pivot_v, pivot[1]);
+  setValue(form.arm_length, arc && !clicked ? arc.length_px : "");
   if (arc && arc.pivot_side) form.pivot_side.value = arc.pivot_side;
+  if (clicked) form.dispatchEvent(new CustomEvent("time-line-loaded"));
 }
 
 // Fill the form from a saved spec; returns its points as { u, v, x, y } rows.
