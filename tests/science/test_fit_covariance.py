@@ -190,12 +190,12 @@ def test_block_sums_agree_with_the_textbook_estimator_on_one_long_trace() -> Non
 
 
 def test_long_trace_coverage_with_strongly_correlated_noise() -> None:
-    """200 quadratic traces of 20,005 samples, AR(1) rho = 0.95: +-2 SE coverage >= 85 % (Monte Carlo)."""
+    """120 quadratic traces of 20,005 samples, AR(1) rho = 0.95: +-2 SE coverage >= 85 % (Monte Carlo)."""
     rng = np.random.default_rng(99)
     count = EXACT_HAC_SAMPLES + 5
     x = np.linspace(0.0, 10.0, count)
     truth = np.array([1.0, -0.4, 0.03])
-    noise = _ar1(rng, 0.95, (200, count), 0.05)
+    noise = _ar1(rng, 0.95, (120, count), 0.05)
     fits = [fit_polynomial(x, np.polyval(truth[::-1], x) + row, degree=2) for row in noise]
     assert all(fit.stats["covariance_block"] == 5 for fit in fits)
     assert _coverage(fits, truth, independent=False).min() >= 0.85
