@@ -103,11 +103,13 @@ MATRIX: dict[tuple[str, str], Rule] = {
     ("GET", "/api/v1/chart-specs/{spec_id}"): Rule(P.READ),
     ("PATCH", "/api/v1/chart-specs/{spec_id}"): Rule(P.DIGITIZE),
     ("POST", "/api/v1/collections/{collection_id}/batch-runs"): Rule(P.MANAGE_COLLECTIONS),
+    ("GET", "/api/v1/collections/{collection_id}/batch-runs"): Rule(P.READ),
     ("GET", "/api/v1/batch-runs/{run_id}"): Rule(P.READ),
     ("POST", "/api/v1/batch-runs/{run_id}/resume"): Rule(P.MANAGE_COLLECTIONS),
     ("GET", "/batch-runs/{run_id}"): Rule(P.READ),
     ("POST", "/batch-runs/{run_id}/resume"): Rule(P.MANAGE_COLLECTIONS),
     ("GET", "/collections/{collection_id}/batch-runs"): Rule(P.READ),
+    ("GET", "/collections/{collection_id}/chart-specs"): Rule(P.READ),
     # jobs
     ("GET", "/api/v1/jobs"): Rule(P.READ, note="lists the caller's own jobs (admins: all)"),
     ("GET", "/api/v1/jobs/{job_id}"): Rule(P.READ, owner="job"),

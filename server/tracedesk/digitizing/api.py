@@ -11,10 +11,10 @@ from sqlalchemy.orm import Session
 from starlette.concurrency import run_in_threadpool
 
 from tracedesk.accounts.permissions import Permission
-from tracedesk.archive.service import get_sheet
+from tracedesk.archive.service import MAX_PAGE, get_collection, get_sheet
 from tracedesk.db import transaction
 from tracedesk.digitizing import batch, calibrations, chart_specs, fits, series, traces
-from tracedesk.digitizing.batch_schemas import BatchRunCreate, BatchRunRead
+from tracedesk.digitizing.batch_schemas import BatchRunCreate, BatchRunPage, BatchRunRead, BatchRunStatus
 from tracedesk.digitizing.detection import detect_calibration
 from tracedesk.digitizing.schemas import (
     AutoTraceRequest,
@@ -382,6 +382,22 @@ async def start_batch_run(
     response.headers["Location"] = f"/api/v1/batch-runs/{run.id}"
     with transaction(state.reader) as session:
         return batch.batch_run_read(session, run.id)
+
+
+@router.get("/collections/{collection_id}/batch-runs", response_model=BatchRunPage)
+def list_batch_runs(
+    collection_id: int,
+    _: Reader,
+    db: SessionDep,
+    status: BatchRunStatus | None = None,
+    limit: Annotated[int, Query(ge=1, le=MAX_PAGE)] = 50,
+    cursor: Annotated[str | None, Query(max_length=200)] = None,
+) -> BatchRunPage:
+    """The collection's runs, newest first, with their counts (each run's sheets are at /api/v1/batch-runs/{id});
+    pages of ``limit`` runs, the next one asked for with ``cursor=next_cursor``."""
+    get_collection(db, collection_id)
+    items, next_cursor = batch.list_batch_runs(db, collection_id, status=status, limit=limit, cursor=cursor)
+    return BatchRunPage(items=items, next_cursor=next_cursor)
 
 
 @router.get("/batch-runs/{run_id}", response_model=BatchRunRead)

@@ -15,10 +15,10 @@ from __future__ import annotations
 import json
 from typing import Any
 
-from sqlalchemy import func, select
+from sqlalchemy import ColumnElement, and_, func, not_, or_, select
 from sqlalchemy.orm import Session
 
-from tracedesk.archive.service import get_collection, get_sheet
+from tracedesk.archive.service import decode_cursor, encode_cursor, get_collection, get_sheet
 from tracedesk.audit.service import Actor, record_event
 from tracedesk.db import transaction
 from tracedesk.digitizing.batch_analysis import NEEDS_PERSON, READY, SKIPPED, SheetOutcome, analyse_sheet
@@ -217,20 +217,29 @@ def batch_run_job(context: JobContext) -> dict[str, Any]:
 
 
 def item_counts(session: Session, run_id: int) -> dict[str, int]:
-    rows = session.execute(
-        select(BatchRunItem.status, func.count()).where(BatchRunItem.run_id == run_id).group_by(BatchRunItem.status)
-    )
-    counts = dict.fromkeys(ITEM_STATUSES, 0)
-    counts.update({status: int(count) for status, count in rows})
-    return counts
+    return _counts_of_runs(session, [run_id])[run_id]
+
+
+def _shown_status(run_status: str, job_status: str | None) -> str:
+    """The stored status, or ``"interrupted"`` when the run's job stopped before the run finished."""
+    if run_status != "finished" and job_status in STOPPED_JOB_STATUSES:
+        return "interrupted"
+    return run_status
 
 
 def _run_status(session: Session, run: BatchRun) -> str:
-    """The stored status, or ``"interrupted"`` when the run's job stopped before the run finished."""
-    if run.status == "finished" or run.job_id is None:
-        return run.status
-    job = session.get(Job, run.job_id)
-    return "interrupted" if job is not None and job.status in STOPPED_JOB_STATUSES else run.status
+    job = session.get(Job, run.job_id) if run.job_id is not None else None
+    return _shown_status(run.status, job.status if job is not None else None)
+
+
+def _status_condition(status: str) -> ColumnElement[bool]:
+    """SQL for "the run shows ``status``" (as :func:`_shown_status` decides), on runs outer-joined to their job."""
+    stopped = Job.status.in_(STOPPED_JOB_STATUSES)
+    if status == "interrupted":
+        return and_(BatchRun.status != "finished", stopped)
+    if status == "finished":
+        return BatchRun.status == "finished"
+    return and_(BatchRun.status == status, or_(Job.id.is_(None), not_(stopped)))
 
 
 def _starter(session: Session, run: BatchRun) -> str | None:
@@ -238,22 +247,57 @@ def _starter(session: Session, run: BatchRun) -> str | None:
     return user.display_name if user is not None else None
 
 
-def batch_runs_of_collection(session: Session, collection_id: int, *, limit: int = 200) -> list[BatchRunSummary]:
-    """The collection's runs, newest first, with their counts (not their items)."""
-    runs = session.scalars(
-        select(BatchRun).where(BatchRun.collection_id == collection_id).order_by(BatchRun.id.desc()).limit(limit)
+def _counts_of_runs(session: Session, run_ids: list[int]) -> dict[int, dict[str, int]]:
+    """:func:`item_counts` of many runs in one query (a page of runs)."""
+    counts = {run_id: dict.fromkeys(ITEM_STATUSES, 0) for run_id in run_ids}
+    rows = session.execute(
+        select(BatchRunItem.run_id, BatchRunItem.status, func.count())
+        .where(BatchRunItem.run_id.in_(run_ids))
+        .group_by(BatchRunItem.run_id, BatchRunItem.status)
     )
-    return [
+    for run_id, status, count in rows:
+        counts[run_id][status] = int(count)
+    return counts
+
+
+def list_batch_runs(
+    session: Session, collection_id: int, *, status: str | None = None, limit: int = 50, cursor: str | None = None
+) -> tuple[list[BatchRunSummary], str | None]:
+    """A page of the collection's runs, newest first, with their counts (not their items), using keyset
+    pagination (``cursor``: the last run seen; the next page holds older runs). ``status`` keeps the runs
+    showing that status, ``"interrupted"`` included."""
+    query = (
+        select(BatchRun, Job.status)
+        .outerjoin(Job, Job.id == BatchRun.job_id)
+        .where(BatchRun.collection_id == collection_id)
+    )
+    if status:
+        query = query.where(_status_condition(status))
+    if cursor:
+        query = query.where(BatchRun.id < decode_cursor(cursor))
+    rows = session.execute(query.order_by(BatchRun.id.desc()).limit(limit + 1)).all()
+    next_cursor = encode_cursor(rows[limit - 1][0].id) if len(rows) > limit else None
+    rows = rows[:limit]
+    counts = _counts_of_runs(session, [run.id for run, _ in rows])
+    summaries = [
         BatchRunSummary(
             id=run.id,
-            status=_run_status(session, run),
-            counts=item_counts(session, run.id),
+            chart_spec_id=run.chart_spec_id,
+            status=_shown_status(run.status, job_status),
+            job_id=run.job_id,
+            counts=counts[run.id],
             started_by=_starter(session, run),
             created_at=run.created_at,
             finished_at=run.finished_at,
         )
-        for run in runs
+        for run, job_status in rows
     ]
+    return summaries, next_cursor
+
+
+def batch_runs_of_collection(session: Session, collection_id: int, *, limit: int = 200) -> list[BatchRunSummary]:
+    """The collection's latest runs, newest first, with their counts (not their items)."""
+    return list_batch_runs(session, collection_id, limit=limit)[0]
 
 
 def batch_run_read(session: Session, run_id: int) -> BatchRunRead:

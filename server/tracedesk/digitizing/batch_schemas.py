@@ -3,7 +3,7 @@
 from __future__ import annotations
 
 from datetime import datetime
-from typing import Annotated, Any
+from typing import Annotated, Any, Literal
 
 from pydantic import AfterValidator, BaseModel, ConfigDict, Field
 
@@ -59,6 +59,10 @@ class BatchRunSettings(BatchRunCreate):
     settings_from: dict[str, str] = Field(default_factory=dict)
 
 
+# What a run shows: its stored status, or "interrupted" when its job stopped before the run finished.
+BatchRunStatus = Literal["queued", "running", "finished", "interrupted"]
+
+
 class BatchItemRead(BaseModel):
     """One sheet's verdict: ``pending``, ``ready_for_review`` (its task is submitted for review),
     ``needs_person`` (its task waits, open, with ``reason``) or ``skipped`` (people hold the sheet; ``reason``
@@ -90,11 +94,20 @@ class BatchRunRead(BaseModel):
 
 
 class BatchRunSummary(BaseModel):
-    """A run in a collection's list of runs: its counts, not its items."""
+    """A run in a collection's list of runs: its counts, not its items (those are at /api/v1/batch-runs/{id})."""
 
     id: int
-    status: str
+    chart_spec_id: int
+    status: str = Field(description="queued, running, finished, or interrupted (its job stopped; resume it)")
+    job_id: int | None = Field(description="the run's latest job (progress at /api/v1/jobs/{job_id})")
     counts: dict[str, int]
     started_by: str | None
     created_at: datetime
     finished_at: datetime | None
+
+
+class BatchRunPage(BaseModel):
+    """A page of a collection's runs, newest first; ask again with ``cursor=next_cursor`` for the next one."""
+
+    items: list[BatchRunSummary]
+    next_cursor: str | None
