@@ -18,7 +18,7 @@ from tracedesk.audit import pages as audit_pages
 from tracedesk.config import Settings
 from tracedesk.db import build_engine, session_factory, writer_engine
 from tracedesk.digitizing import api as digitizing_api
-from tracedesk.digitizing import batch_pages, workbench_api
+from tracedesk.digitizing import batch_pages, chart_spec_pages, workbench_api
 from tracedesk.digitizing import pages as digitizing_pages
 from tracedesk.exports import api as exports_api
 from tracedesk.exports import pages as exports_pages
@@ -87,6 +87,7 @@ def create_app(settings: Settings | None = None, *, state: AppState | None = Non
         audit_pages.router,
         digitizing_pages.router,
         batch_pages.router,
+        chart_spec_pages.router,
         workflow_pages.router,
         exports_pages.router,
     ):

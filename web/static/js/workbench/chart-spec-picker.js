@@ -12,6 +12,9 @@ export function createSpecPicker(panel, wb, drafts) {
   const findButton = panel.querySelector('[data-action="find-grid"]');
   const note = panel.querySelector("[data-spec-note]");
   const introduction = note.textContent;
+  // "Describe a printed grid" opens the chosen spec on the chart-spec page, or a new one when none is chosen.
+  const gridLink = panel.querySelector("[data-spec-grid-link]");
+  const gridPage = gridLink ? gridLink.pathname : "";
   const proposal = createProposal(panel, wb, drafts, { onClose: (accepted) => (accepted ? drafts.focusSave() : findButton.focus()) });
 
   const selected = () => (choice.value ? choice.selectedOptions[0] : null);
@@ -21,6 +24,7 @@ export function createSpecPicker(panel, wb, drafts) {
     applyButton.disabled = !wb.canEdit || !option;
     findButton.disabled = !wb.canEdit || !option || option.dataset.geometry !== "true";
     note.textContent = option ? describeSpec(option) : introduction;
+    if (gridLink) gridLink.href = `${gridPage}${option ? `?spec=${option.value}` : ""}#grid-form`;
   }
 
   function fromTemplate(spec) {
