@@ -13,6 +13,7 @@ from tracedesk.accounts import pages as accounts_pages
 from tracedesk.accounts.passwords import build_hasher
 from tracedesk.archive import api as archive_api
 from tracedesk.archive import pages as archive_pages
+from tracedesk.archive.ingest import decode_limits
 from tracedesk.audit import api as audit_api
 from tracedesk.audit import pages as audit_pages
 from tracedesk.config import Settings
@@ -20,6 +21,7 @@ from tracedesk.db import build_engine, session_factory, writer_engine
 from tracedesk.digitizing import api as digitizing_api
 from tracedesk.digitizing import batch_pages, chart_spec_pages, workbench_api
 from tracedesk.digitizing import pages as digitizing_pages
+from tracedesk.digitizing.sheet_image import use_decode_limits
 from tracedesk.exports import api as exports_api
 from tracedesk.exports import pages as exports_pages
 from tracedesk.jobs import api as jobs_api
@@ -56,6 +58,7 @@ def build_state(settings: Settings, *, migrate: bool = True) -> AppState:
         templates=build_templates(),
     )
     state.dispatcher = build_dispatcher(state)
+    use_decode_limits(decode_limits(settings))
     return state
 
 

@@ -42,6 +42,12 @@ class Settings(BaseSettings):
     # Each page is decoded in a child process with this wall-clock time and address space (tracedesk.imaging).
     decode_timeout_seconds: float = Field(default=60.0, gt=0)
     decode_memory_mib: int = Field(default=2048, ge=256)
+    # Wall-clock seconds all the pages of one uploaded file may take to decode together (10 x the page limit):
+    # past it the file is refused, naming the page it reached, and nothing of it is kept.
+    decode_file_seconds: float = Field(default=600.0, gt=0, allow_inf_nan=False)
+    # Decodes running at once in each web or worker process; memory used by decoding stays below this many times
+    # decode_memory_mib. Two suits the two-core reference machine.
+    decode_parallel: int = Field(default=2, ge=1, le=64)
 
     # Storage backend: "local" (data_dir/files) or "s3".
     storage_backend: Literal["local", "s3"] = "local"

@@ -8,7 +8,9 @@ from __future__ import annotations
 
 import os
 import resource
+import time
 from collections.abc import Mapping
+from pathlib import Path
 from typing import Any
 
 from tracedesk.imaging.decoder_child import allow_processor_time, serve
@@ -61,6 +63,21 @@ def _pixels(arguments: Mapping[str, Any], respond: Respond) -> None:
     respond({"payload_bytes": size}, [data[: size // 2], data[size // 2 :]])
 
 
+def _meet(arguments: Mapping[str, Any], respond: Respond) -> None:
+    """Leave a mark in a shared folder, then wait up to ``wait_seconds`` for ``expected`` marks (this one's
+    included): the requests met only if they ran at the same time. The clock is CLOCK_MONOTONIC, which all
+    processes of the machine share (clock_gettime(2)), so the stamps of two children compare."""
+    started = time.monotonic()
+    folder = Path(arguments["folder"])
+    (folder / str(os.getpid())).touch()
+    deadline = started + float(arguments["wait_seconds"])
+    met = False
+    while not met and time.monotonic() < deadline:
+        met = len(list(folder.iterdir())) >= int(arguments["expected"])
+        time.sleep(0.01)
+    respond({"met": met, "started": started, "ended": time.monotonic()}, ())
+
+
 def _refuse(arguments: Mapping[str, Any], respond: Respond) -> None:
     raise TooManyPixels("the page is far too large")
 
@@ -76,6 +93,7 @@ OPERATIONS: dict[str, Operation] = {
     "fill_then_abort": _fill_then_abort,
     "limits": _limits,
     "pixels": _pixels,
+    "meet": _meet,
     "refuse": _refuse,
     "fail": _fail,
 }

@@ -25,6 +25,7 @@ from tracedesk.archive.schemas import RefusedFile, UploadResult
 from tracedesk.archive.service import SheetWithSource, get_collection
 from tracedesk.archive.views import sheet_read
 from tracedesk.audit.service import Actor, created_fields, record_event
+from tracedesk.config import Settings
 from tracedesk.db import transaction
 from tracedesk.errors import AppError, Conflict, PayloadTooLarge
 from tracedesk.imaging.errors import UploadRefused
@@ -117,19 +118,25 @@ def refuse_duplicate(state: AppState, collection_id: int, sha256: str) -> None:
 def examine_received(state: AppState, received: ReceivedFile) -> UploadInfo:
     """Identify the file by its content and check it against the decoding limits (UploadRefused if not)."""
     settings = state.settings
-    limits = DecodeLimits(
+    return examine_upload(
+        received.path,
+        declared_name=received.filename,
+        declared_media_type=received.media_type,
+        limits=decode_limits(settings),
+        pdf_dpi=settings.pdf_dpi,
+    )
+
+
+def decode_limits(settings: Settings) -> DecodeLimits:
+    """The decoding limits the settings ask for (uploads, and stored originals decoded again)."""
+    return DecodeLimits(
         max_file_bytes=settings.max_upload_bytes,
         max_pixels_per_page=settings.max_pixels_per_page,
         max_pages=settings.max_pages_per_file,
         max_decode_seconds=settings.decode_timeout_seconds,
         max_decode_memory_bytes=settings.decode_memory_mib * 2**20,
-    )
-    return examine_upload(
-        received.path,
-        declared_name=received.filename,
-        declared_media_type=received.media_type,
-        limits=limits,
-        pdf_dpi=settings.pdf_dpi,
+        max_file_decode_seconds=settings.decode_file_seconds,
+        max_parallel_decodes=settings.decode_parallel,
     )
 
 

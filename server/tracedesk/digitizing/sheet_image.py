@@ -18,6 +18,7 @@ import numpy as np
 from numpy.typing import NDArray
 
 from tracedesk.archive.files import NORMALISED_NAME, SOURCE_NAME
+from tracedesk.imaging.limits import DEFAULT_LIMITS, DecodeLimits
 from tracedesk.imaging.normalise import load_normalised
 from tracedesk.imaging.pages import decode_sheet, examine_upload
 from tracedesk.storage import FileStore, LocalFileStore, StoredFileCorrupt, sha256_of_file
@@ -25,6 +26,15 @@ from tracedesk.storage import FileStore, LocalFileStore, StoredFileCorrupt, sha2
 CACHED_SHEETS = 2
 _cache: OrderedDict[str, NDArray[np.uint8]] = OrderedDict()
 _cache_lock = Lock()
+# The decoding limits of this process's settings (set by build_state): a stored original is decoded again under
+# the limits it was accepted with, not the built-in defaults (a raised pixel cap must not refuse it later).
+_limits: DecodeLimits | None = None
+
+
+def use_decode_limits(limits: DecodeLimits) -> None:
+    """Decode stored originals under ``limits`` from now on (called once per app or worker with its settings)."""
+    global _limits
+    _limits = limits
 
 
 def _decode_original(store: FileStore, derived_key: str, folder: Path) -> NDArray[np.uint8]:
@@ -38,7 +48,7 @@ def _decode_original(store: FileStore, derived_key: str, folder: Path) -> NDArra
             raise StoredFileCorrupt(key, actual)
     else:
         path = store.copy_verified(key, folder / "original")
-    info = examine_upload(path, declared_name=str(source.get("filename") or ""))
+    info = examine_upload(path, declared_name=str(source.get("filename") or ""), limits=_limits or DEFAULT_LIMITS)
     image = decode_sheet(info, info.pages[int(source["page_index"])]).image
     return np.asarray(image.numpy(), dtype=np.uint8).reshape(image.height, image.width, -1)[:, :, :3]
 

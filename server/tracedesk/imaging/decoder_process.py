@@ -9,20 +9,26 @@ and sends it requests one at a time (`decoder_wire`). The child confines itself 
   the page caps bound);
 * time: each request has `DecodeLimits.max_decode_seconds` of wall-clock time, after which the web process kills
   the child with SIGKILL; the child's processor time is capped as well (that allowance times the number of cores,
-  since libvips decodes with several threads), which stops it even if the web process is gone.
+  since libvips decodes with several threads), which stops it even if the web process is gone;
+* time per file: the requests of one `DecoderProcess` (one upload's pages, see `pages.iter_sheets`) share
+  `DecodeLimits.max_file_decode_seconds` of wall-clock time, counted from each request sent to its reply (neither
+  the wait for a turn nor the child's start-up is the file's doing). A request gets at most what is left of it,
+  and a reply that arrives past it refuses the file all the same.
 
 Outcomes become the upload refusals of `tracedesk.imaging.errors`: wall-clock or processor time exceeded ->
-`DecodeTimeLimit` (422); MemoryError reported, or the child killed by a signal after using at least half its
-memory -> `DecodeMemoryLimit` (413); any other abnormal end -> `DecoderStopped` (422), whose message states the
-memory used. Why half: an address-space limit fails the allocation that would cross it, and a decoder running
-out grows its memory step by step up to it (measured peak resident sets, ru_maxrss: PDFium inflating a content
-stream died at 99% of a 2048 MiB limit, PDFium drawing nested forms at 84% of 512 MiB), so a process stopped by
-the limit has typically used more than half of it; one that dies early is reported as stopped, with the memory
-it used, rather than guessed to be a bomb. A refusal the child reports (a damaged page) is raised as the same
-`UploadRefused` subclass; an unexpected exception in the child is a bug (RuntimeError).
+`DecodeTimeLimit` (422), the file's budget exceeded -> `FileDecodeTimeLimit` (422); MemoryError reported, or the
+child killed by a signal after using at least half its memory -> `DecodeMemoryLimit` (413); any other abnormal end
+-> `DecoderStopped` (422), whose message states the memory used. Why half: an address-space limit fails the
+allocation that would cross it, and a decoder running out grows its memory step by step up to it (measured peak
+resident sets, ru_maxrss: PDFium inflating a content stream died at 99% of a 2048 MiB limit, PDFium drawing nested
+forms at 84% of 512 MiB), so a process stopped by the limit has typically used more than half of it; one that dies
+early is reported as stopped, with the memory it used, rather than guessed to be a bomb. A refusal the child
+reports (a damaged page) is raised as the same `UploadRefused` subclass; an unexpected exception in the child is a
+bug (RuntimeError).
 
-At most `CONCURRENT_DECODES` requests run at once in the whole web process, so decoding never holds more than
-that many times the memory limit, whatever the number of simultaneous uploads.
+At most `DecodeLimits.max_parallel_decodes` requests (the ``decode_parallel`` setting) run at once in the whole
+web process, so decoding never holds more than that many times the memory limit, whatever the number of
+simultaneous uploads.
 """
 
 from __future__ import annotations
@@ -34,7 +40,7 @@ import signal
 import subprocess
 import threading
 import time
-from collections.abc import Callable, Mapping, Sequence
+from collections.abc import Callable, Iterator, Mapping, Sequence
 from dataclasses import dataclass
 from types import TracebackType
 from typing import Any, TypeVar
@@ -51,30 +57,57 @@ from tracedesk.imaging.errors import (
     DecodeMemoryLimit,
     DecoderStopped,
     DecodeTimeLimit,
+    FileDecodeTimeLimit,
     UploadRefused,
     refusal_for,
 )
 from tracedesk.imaging.limits import DecodeLimits
 
-#: Two cores on the reference machine: two decodes in parallel use them and bound memory to twice the limit.
-CONCURRENT_DECODES = 2
 #: Starting the child (importing numpy, libvips, PDFium) takes 0.2-0.8 s; this only catches a broken install.
 STARTUP_SECONDS = 60.0
 _MEMORY_EVIDENCE = 0.5
 #: How often the child's peak memory is sampled while it works (a decoder needs far longer to fill its limit).
 SAMPLE_SECONDS = 0.01
 INHERITANCE_MARGIN_BYTES = 16 * 2**20
-_SLOTS = threading.BoundedSemaphore(CONCURRENT_DECODES)
 T = TypeVar("T")
 
 
-def _fresh_slots() -> None:
-    # A forked process must not inherit slots that its parent's other threads were holding at the fork.
-    global _SLOTS
-    _SLOTS = threading.BoundedSemaphore(CONCURRENT_DECODES)
+class _Turns:
+    """The requests running in this process; each waits for its turn under the parallel cap its limits carry.
+
+    A semaphore fixes its size when it is made, at import, before any settings are read; a count guarded by a
+    condition takes the cap from each request's limits (built from the settings), and while every request
+    carries the same cap it behaves exactly as a semaphore of that size.
+    """
+
+    def __init__(self) -> None:
+        self._changed = threading.Condition()
+        self._running = 0
+
+    @contextlib.contextmanager
+    def taken(self, cap: int) -> Iterator[None]:
+        """Hold a turn for the block, once fewer than `cap` requests are running."""
+        with self._changed:
+            self._changed.wait_for(lambda: self._running < cap)
+            self._running += 1
+        try:
+            yield
+        finally:
+            with self._changed:
+                self._running -= 1
+                self._changed.notify_all()  # waiters may have different caps: each checks its own
 
 
-os.register_at_fork(after_in_child=_fresh_slots)
+_TURNS = _Turns()
+
+
+def _fresh_turns() -> None:
+    # A forked process must not inherit turns that its parent's other threads were holding at the fork.
+    global _TURNS
+    _TURNS = _Turns()
+
+
+os.register_at_fork(after_in_child=_fresh_turns)
 
 
 @dataclass(frozen=True)
@@ -104,17 +137,32 @@ class DecoderProcess:
     Parameters
     ----------
     limits
-        The time and memory limits (`max_decode_seconds`, `max_decode_memory_bytes`).
+        The time and memory limits (`max_decode_seconds`, `max_file_decode_seconds`, `max_decode_memory_bytes`)
+        and the process-wide parallel cap (`max_parallel_decodes`).
     command
         The child's command line (tests run their own operations through `decoder_child.serve`).
+    clock
+        Seconds from a fixed origin, which measure the requests against the file's budget (tests pass one that
+        advances by a known step per reading).
     """
 
-    def __init__(self, limits: DecodeLimits, *, command: Sequence[str] = DECODER_COMMAND) -> None:
+    def __init__(
+        self,
+        limits: DecodeLimits,
+        *,
+        command: Sequence[str] = DECODER_COMMAND,
+        clock: Callable[[], float] = time.monotonic,
+    ) -> None:
         self.limits = limits
         self._command = list(command)
+        self._clock = clock
         self._process: subprocess.Popen[bytes] | None = None
         self._killed_for_time = False
         self._sampled_peak = 0
+        #: Wall-clock seconds the requests have taken so far, against `limits.max_file_decode_seconds`.
+        self._spent_seconds = 0.0
+        #: Whether the running request's deadline is what was left of the file's budget (not the page limit).
+        self._budget_binds = False
 
     def __enter__(self) -> DecoderProcess:
         return self
@@ -144,24 +192,45 @@ class DecoderProcess:
         Raises
         ------
         UploadRefused
-            `DecodeTimeLimit`, `DecodeMemoryLimit`, `DecoderStopped`, or the refusal the child reported.
+            `DecodeTimeLimit`, `FileDecodeTimeLimit`, `DecodeMemoryLimit`, `DecoderStopped`, or the refusal the
+            child reported.
         RuntimeError
             The child failed unexpectedly or broke the protocol (a bug, not a property of the file).
         """
-        with _SLOTS:
+        message = {"operation": operation, "arguments": dict(arguments), "cpu_seconds": self.processor_seconds}
+        seconds = self._request_seconds(what)  # before a turn and a child are taken for a file already refused
+        with _TURNS.taken(self.limits.max_parallel_decodes):
             process = self._running()
-            message = {"operation": operation, "arguments": dict(arguments), "cpu_seconds": self.processor_seconds}
+            started = self._clock()
             try:
-                write_frame(self._stdin(process), message)
-            except BrokenPipeError:
-                raise self._refusal(self._ended(process), what) from None
-            return self._receive(process, what=what, max_payload_bytes=max_payload_bytes)
+                reply = self._request(process, message, seconds=seconds, what=what, max_payload_bytes=max_payload_bytes)
+            finally:
+                self._spent_seconds += self._clock() - started
+        if self._spent_seconds > self.limits.max_file_decode_seconds:
+            raise FileDecodeTimeLimit(self._over_budget(what))  # answered, but past the budget all the same
+        return reply
 
     def close(self) -> None:
         """Ask the child to exit (end of its input) and wait for it; kill it if it does not."""
         process, self._process = self._process, None
         if process is not None:
             retire(process)
+
+    def _request_seconds(self, what: str) -> float:
+        """The wall-clock time the next request may take: the page limit, or what is left of the file's budget
+        when that is less."""
+        left = self.limits.max_file_decode_seconds - self._spent_seconds
+        if left <= 0:
+            raise FileDecodeTimeLimit(self._over_budget(what))
+        self._budget_binds = left < self.limits.max_decode_seconds
+        return min(left, self.limits.max_decode_seconds)
+
+    def _over_budget(self, what: str) -> str:
+        return (
+            f"{what} went past {self.limits.max_file_decode_seconds:g} s, the decoding time allowed for all the "
+            "pages of one file together, so the file was refused; split it into smaller files, or it may be damaged "
+            "or built to be slow"
+        )
 
     # -- the child's life --------------------------------------------------------------------------------
 
@@ -237,7 +306,22 @@ class DecoderProcess:
 
     # -- replies -----------------------------------------------------------------------------------------
 
-    def _receive(self, process: subprocess.Popen[bytes], *, what: str, max_payload_bytes: int) -> Reply:
+    def _request(
+        self,
+        process: subprocess.Popen[bytes],
+        message: Mapping[str, Any],
+        *,
+        seconds: float,
+        what: str,
+        max_payload_bytes: int,
+    ) -> Reply:
+        try:
+            write_frame(self._stdin(process), message)
+        except BrokenPipeError:
+            raise self._refusal(self._ended(process), what) from None
+        return self._receive(process, seconds=seconds, what=what, max_payload_bytes=max_payload_bytes)
+
+    def _receive(self, process: subprocess.Popen[bytes], *, seconds: float, what: str, max_payload_bytes: int) -> Reply:
         def read_reply() -> tuple[dict[str, Any], bytearray] | None:
             header = read_frame(self._stdout(process))
             if header is None:
@@ -251,7 +335,7 @@ class DecoderProcess:
             return header, payload
 
         try:
-            received = self._with_deadline(process, self.limits.max_decode_seconds, read_reply)
+            received = self._with_deadline(process, seconds, read_reply)
         except (WireError, ValueError) as exc:
             self._ended(process)
             raise RuntimeError(f"the decoder process broke the protocol while {what}: {exc}") from exc
@@ -270,6 +354,8 @@ class DecoderProcess:
 
     def _refusal(self, ending: _Ending, what: str) -> UploadRefused:
         limit = self.limits.max_decode_memory_bytes
+        if ending.killed_for_time and self._budget_binds:
+            return FileDecodeTimeLimit(self._over_budget(what))
         if ending.killed_for_time:
             return DecodeTimeLimit(
                 f"{what} took longer than the limit of {self.limits.max_decode_seconds:g} s, so the file was "

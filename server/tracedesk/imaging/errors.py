@@ -87,6 +87,16 @@ class DecodeTimeLimit(UploadRefused):
     code = "decode_time_limit"
 
 
+class FileDecodeTimeLimit(DecodeTimeLimit):
+    """Decoding the pages of one file took longer, all together, than the file's time budget.
+
+    Each page may be within its own limit: a file of hundreds of slow pages would otherwise hold a decoder for
+    hours. The reason names the page being decoded when the budget ran out.
+    """
+
+    code = "file_decode_time_limit"
+
+
 class DecodeMemoryLimit(UploadTooLarge):
     """Decoding a page needed more memory than the decoder process is allowed (a decompression bomb)."""
 

@@ -212,8 +212,10 @@ def decode_sheet(info: UploadInfo, page: PageInfo) -> NormalisedSheet:
 def iter_sheets(info: UploadInfo) -> Iterator[NormalisedSheet]:
     """Yield the normalised sheet of every page of an examined upload, one at a time, in file order.
 
-    One decoder process serves all the pages. Only one decoded page is held at a time (a 7000 x 5000 page is
-    105 MB). Raises what `decode_sheet` raises.
+    One decoder process serves all the pages, so they share the file's decoding budget
+    (`DecodeLimits.max_file_decode_seconds`). Only one decoded page is held at a time (a 7000 x 5000 page is
+    105 MB). Raises what `decode_sheet` raises, and `FileDecodeTimeLimit` (naming the page it reached) once the
+    pages together go past the budget.
     """
     with DecoderProcess(info.limits) as decoder:
         for page in info.pages:
