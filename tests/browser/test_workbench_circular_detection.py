@@ -1,6 +1,7 @@
 """A circular chart spec in the workbench: "Find its printed grid" finds the centre and the value rings on a scan
-(and time zero, when the spec gives its time lines), shows them for review, and "Use these points" fills the
-circular calibration form, which then reads a pen point correctly once saved.
+(and time zero, when the spec gives its time lines), shows them for review, and accepting ("Use the centre and
+rings", or "Use these points" with time zero found) fills the circular calibration form, which then reads a
+pen point correctly once saved.
 
 Truth (tests/browser/charts.py, drawn by matplotlib): centre (400, 400) px, value 0 on the ring of radius 60 px
 and 100 on radius 360 px with a ring every 10 (30 px), a radial time line every hour, time zero at 12 o'clock,
@@ -109,7 +110,7 @@ def test_rings_found_from_a_circular_spec_fill_the_form(page: Page, console: Con
     expect(proposal.locator("[data-proposal-warnings]")).to_contain_text("time zero has to be placed by hand")
     _check_proposal_text(proposal)
     expect(form.get_by_label("Chart kind")).to_have_value("cartesian")  # nothing enters the draft before review
-    use = proposal.get_by_role("button", name="Use these points")
+    use = proposal.get_by_role("button", name="Use the centre and rings")  # no time zero: no points to use
     expect(use).to_be_focused()
     shoot(page, "workbench-circular-proposal")
 

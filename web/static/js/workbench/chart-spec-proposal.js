@@ -93,6 +93,8 @@ export function createProposal(panel, wb, drafts, { onClose }) {
       const result = await postJson(`/api/v1/sheets/${wb.sheetId}/calibration/detect`, { chart_spec_id: specId });
       if (mine !== asking) return;
       found = result;
+      // Say what accepting fills: a whole calibration, or only the centre and rings of a circular chart.
+      accept.textContent = result.calibration ? "Use these points" : "Use the centre and rings";
       show(describe(result), result.warnings, true);
       accept.focus();
     } catch (error) {
