@@ -19,17 +19,12 @@ from playwright.sync_api import Locator, Page, expect
 
 from tests.browser.charts import CircularChart
 from tests.browser.conftest import ConsoleWatch, api, click_image, log_in, open_workbench, shoot, show_whole
+from tests.browser.test_workbench_chart_specs import RINGS
 from tests.browser.test_workbench_circular import CHART
 
 GEOMETRY_PX = 0.25
-# The chart's paper: only the ratio of the ring radii matters to detection (grid_spec.py), 60 : 360 px here.
-RINGS = {
-    "kind": "circular",
-    "value_axis": {"scale": "linear", "frame": [0, 100], "minor_step": 10},
-    "ring_radii_mm": [15, 90],
-    "period_hours": 24,
-    "grid_colour": "#9cc59a",
-}
+# The chart's paper is RINGS (tests/browser/test_workbench_chart_specs.py): only the ratio of the ring radii
+# matters to detection (grid_spec.py), 60 : 360 px here.
 # The same paper with its time lines: one an hour, time zero where the 12 o'clock line meets the outer ring.
 TIMED = {**RINGS, "time_line_hours": 1, "time_zero_angle_deg": -90.0, "time_direction": "clockwise"}
 NUMBER = r"(-?\d+(?:\.\d+)?)"
